@@ -1,5 +1,9 @@
 """Reading and writing files: matrices, sample sheets, tables, gene lists and GMT.
 
+Readers turn every parse problem into a :class:`~gloam.errors.GloamError` that names
+the file, the row or column and the fix.  Gene IDs are always read as text, so IDs
+such as ``1-Mar``, ``SEPT2`` or ``0001`` are never turned into dates or numbers.
+
 Every writer goes through :func:`atomic_output`: the result is written to a
 temporary file beside the target and renamed into place only when complete, so
 an interrupted or failed step never leaves a half-written result that a later
@@ -9,16 +13,21 @@ step (or Snakemake) could mistake for a finished one.
 from __future__ import annotations
 
 import contextlib
+import csv
+import gzip
 import os
 import tempfile
 from collections.abc import Iterable, Iterator, Mapping, Sequence
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
 
 from gloam.errors import GloamError
 
 __all__ = [
+    "read_matrix",
+    "read_sample_sheet",
     "atomic_output",
     "write_table",
     "write_lines",
@@ -101,3 +110,329 @@ def read_gmt(path: str | os.PathLike[str]) -> dict[str, tuple[str, list[str]]]:
                 )
             gene_sets[fields[0]] = (fields[1], [gene for gene in fields[2:] if gene])
     return gene_sets
+
+
+# Cells that mean "no value" in a matrix.  Applied to the value columns only, so a gene
+# called "NA" (or "NULL") keeps its name.
+_MISSING_MARKERS = ["", "NA", "NaN", "nan", "N/A", "n/a", "null", "NULL", "-"]
+
+_TEXT_SUFFIXES = {".tsv": "\t", ".txt": "\t", ".tab": "\t", ".csv": ","}
+
+SAMPLE_SHEET_COLUMNS = ("sample", "time", "replicate", "condition")
+
+
+def _require_file(path: Path, what: str) -> None:
+    if not path.exists():
+        raise GloamError(f"{what} file {str(path)!r} does not exist; check the path")
+    if not path.is_file():
+        raise GloamError(f"{what} path {str(path)!r} is not a file; give the path of a file")
+
+
+def _text_separator(path: Path, what: str) -> str:
+    """Column separator from the file name (``.gz`` is looked through)."""
+    suffixes = [suffix.lower() for suffix in path.suffixes]
+    if suffixes and suffixes[-1] == ".gz":
+        suffixes = suffixes[:-1]
+    if suffixes and suffixes[-1] in _TEXT_SUFFIXES:
+        return _TEXT_SUFFIXES[suffixes[-1]]
+    raise GloamError(
+        f"{what} file {str(path)!r} has an unknown extension; use .tsv, .txt, .csv "
+        "(optionally .gz)" + (" or .h5ad" if what == "matrix" else "")
+    )
+
+
+def _read_header(path: Path, separator: str, what: str) -> list[str]:
+    opener = gzip.open if path.suffix.lower() == ".gz" else open
+    try:
+        with opener(path, "rt", encoding="utf-8-sig", newline="") as stream:
+            header = next(csv.reader(stream, delimiter=separator), None)
+    except (OSError, UnicodeDecodeError, csv.Error) as error:
+        raise GloamError(
+            f"{what} file {str(path)!r} cannot be read as text ({error}); "
+            "give an uncompressed or gzipped UTF-8 table"
+        ) from error
+    if not header or not any(field.strip() for field in header):
+        raise GloamError(f"{what} file {str(path)!r} is empty; it needs a header line")
+    return [field.strip() for field in header]
+
+
+def _name_duplicates(names: Sequence[str], limit: int = 5) -> str:
+    counts = pd.Series(list(names)).value_counts()
+    duplicated = counts[counts > 1]
+    shown = ", ".join(f"{name!r} ({count}x)" for name, count in duplicated.head(limit).items())
+    more = f" and {len(duplicated) - limit} more" if len(duplicated) > limit else ""
+    return f"{shown}{more}"
+
+
+def read_matrix(path: str | os.PathLike[str], *, layer: str | None = None) -> pd.DataFrame:
+    """Read an expression matrix as a genes x samples table of floats.
+
+    Parameters
+    ----------
+    path : path-like
+        ``.tsv``/``.txt``/``.tab`` (tab-separated) or ``.csv`` (comma-separated), each
+        optionally gzipped (``.gz``): first column gene IDs, header line of sample names.
+        Or ``.h5ad`` (AnnData, bulk convention: observations = samples, variables = genes).
+        Empty cells and ``NA``, ``NaN``, ``N/A``, ``null``, ``-`` are read as missing (NaN).
+    layer : str, optional
+        For ``.h5ad`` only: read this entry of ``layers`` instead of ``X``.
+
+    Returns
+    -------
+    DataFrame of shape (n_genes, n_samples)
+        float64 values; index = gene IDs as ``str`` (never parsed as dates or numbers,
+        surrounding whitespace removed), named ``gene``; columns = sample names (``str``).
+
+    Raises
+    ------
+    GloamError
+        Missing file, unknown extension, unreadable file, empty matrix, duplicate or empty
+        gene IDs or sample names, a cell that is not a number (gene and sample named),
+        ragged rows, ``layer`` given for a text file or not present in the ``.h5ad``.
+    """
+    path = Path(path)
+    _require_file(path, "matrix")
+    if path.suffix.lower() == ".h5ad":
+        matrix = _read_h5ad_matrix(path, layer)
+    else:
+        if layer is not None:
+            raise GloamError(
+                f"layer={layer!r} was given but {str(path)!r} is a text table; layers exist "
+                "only in .h5ad files, so remove the layer setting"
+            )
+        matrix = _read_text_matrix(path)
+    _check_matrix_labels(matrix, path)
+    return matrix
+
+
+def _read_text_matrix(path: Path) -> pd.DataFrame:
+    separator = _text_separator(path, "matrix")
+    header = _read_header(path, separator, "matrix")
+    samples = header[1:]
+    if not samples:
+        raise GloamError(
+            f"matrix file {str(path)!r} has no sample columns (header {header!r}); expected "
+            f"gene IDs in the first column and one column per sample, separated by "
+            f"{'tabs' if separator == chr(9) else 'commas'}"
+        )
+    if any(not name for name in samples):
+        position = samples.index("") + 2
+        raise GloamError(
+            f"matrix file {str(path)!r}: column {position} has an empty sample name in the "
+            "header; give every sample column a name"
+        )
+    if len(set(samples)) != len(samples):
+        raise GloamError(
+            f"matrix file {str(path)!r} has duplicate sample names in the header: "
+            f"{_name_duplicates(samples)}; make every sample name unique"
+        )
+    # Positional column labels keep pandas from renaming duplicates or reinterpreting the
+    # header; gene IDs are read as text and never NA-converted or date-parsed.
+    names = list(range(len(header)))
+    try:
+        table = pd.read_csv(
+            path,
+            sep=separator,
+            header=None,
+            skiprows=1,
+            names=names,
+            index_col=0,
+            dtype={0: str},
+            keep_default_na=False,
+            na_values={column: _MISSING_MARKERS for column in names[1:]},
+            encoding="utf-8-sig",
+            low_memory=False,
+        )
+    except (pd.errors.ParserError, ValueError, UnicodeDecodeError, OSError) as error:
+        raise GloamError(
+            f"matrix file {str(path)!r} could not be parsed ({' '.join(str(error).split())}); "
+            "check that every row has a gene ID and one value per sample"
+        ) from error
+    table.columns = pd.Index(samples, dtype=object)
+    table.index = pd.Index([str(gene).strip() for gene in table.index], dtype=object, name="gene")
+    if table.shape[0] == 0:
+        raise GloamError(
+            f"matrix file {str(path)!r} has a header but no gene rows; the matrix is empty"
+        )
+    text_columns = [
+        name for name, kind in table.dtypes.items() if not pd.api.types.is_numeric_dtype(kind)
+    ]
+    for sample in text_columns:
+        column = table[sample]
+        numbers = pd.to_numeric(column, errors="coerce")
+        bad = numbers.isna() & column.notna()
+        gene = bad.index[np.argmax(bad.to_numpy())]
+        raise GloamError(
+            f"matrix file {str(path)!r}: value {column[bad].iloc[0]!r} for gene {gene!r} in "
+            f"sample {sample!r} is not a number ({int(bad.sum())} such cells in that sample); "
+            "use numbers, or leave the cell empty / NA for a missing value"
+        )
+    return table.astype(np.float64, copy=False)
+
+
+def _read_h5ad_matrix(path: Path, layer: str | None) -> pd.DataFrame:
+    import anndata
+    import scipy.sparse
+
+    try:
+        data = anndata.read_h5ad(path)
+    except Exception as error:  # anndata/h5py raise many unrelated types for a bad file
+        raise GloamError(
+            f"matrix file {str(path)!r} could not be read as AnnData .h5ad ({error}); "
+            "check that it was written by anndata"
+        ) from error
+    if layer is None:
+        values = data.X
+        if values is None:
+            raise GloamError(
+                f"matrix file {str(path)!r} has no X matrix; set a layer "
+                f"(available: {sorted(data.layers.keys()) or 'none'})"
+            )
+    else:
+        if layer not in data.layers:
+            raise GloamError(
+                f"matrix file {str(path)!r} has no layer {layer!r}; available layers: "
+                f"{sorted(data.layers.keys()) or 'none'} (leave layer unset to use X)"
+            )
+        values = data.layers[layer]
+    if scipy.sparse.issparse(values):
+        values = values.toarray()
+    values = np.asarray(values)
+    real = np.issubdtype(values.dtype, np.number) and not np.iscomplexobj(values)
+    if not real:
+        raise GloamError(
+            f"matrix file {str(path)!r}: {'X' if layer is None else f'layer {layer!r}'} holds "
+            f"{values.dtype} values, not real numbers; store counts or log values as numbers"
+        )
+    # Bulk convention in the file (obs = samples, var = genes); in memory genes x samples.
+    return pd.DataFrame(
+        values.T.astype(np.float64),
+        index=pd.Index([str(gene).strip() for gene in data.var_names], dtype=object, name="gene"),
+        columns=pd.Index([str(sample).strip() for sample in data.obs_names], dtype=object),
+    )
+
+
+def _check_matrix_labels(matrix: pd.DataFrame, path: Path) -> None:
+    if matrix.shape[0] == 0 or matrix.shape[1] == 0:
+        raise GloamError(
+            f"matrix file {str(path)!r} is empty ({matrix.shape[0]} genes x "
+            f"{matrix.shape[1]} samples); it needs at least one gene and one sample"
+        )
+    genes = matrix.index
+    empty = np.flatnonzero(genes == "")
+    if empty.size:
+        raise GloamError(
+            f"matrix file {str(path)!r}: gene row {int(empty[0]) + 1} has an empty gene ID "
+            f"({empty.size} such rows); give every row a gene ID"
+        )
+    if genes.has_duplicates:
+        raise GloamError(
+            f"matrix file {str(path)!r} has duplicate gene IDs: {_name_duplicates(genes)}; "
+            "make gene IDs unique (e.g. sum or drop duplicated rows before running gloam)"
+        )
+    if matrix.columns.has_duplicates:
+        raise GloamError(
+            f"matrix file {str(path)!r} has duplicate sample names: "
+            f"{_name_duplicates(matrix.columns)}; make every sample name unique"
+        )
+
+
+def read_sample_sheet(path: str | os.PathLike[str]) -> pd.DataFrame:
+    """Read the sample sheet: which sample was taken at which time, replicate and condition.
+
+    Parameters
+    ----------
+    path : path-like
+        ``.tsv``/``.txt``/``.tab`` or ``.csv`` (optionally ``.gz``) with a header line.
+        Required columns ``sample`` and ``time`` (a number; its unit is given once in the
+        config); optional ``replicate`` and ``condition``.  Header names are matched
+        without regard to case or surrounding spaces; other columns are ignored.
+
+    Returns
+    -------
+    DataFrame of shape (n_samples, 2 to 4)
+        Columns ``sample`` (str), ``time`` (float64) and, when present, ``replicate`` (str)
+        and ``condition`` (str), in that order; one row per sample, in file order.
+
+    Raises
+    ------
+    GloamError
+        Missing file, unknown extension, missing ``sample``/``time`` column, a column named
+        twice, no rows, empty or duplicate sample names, a time that is not a finite
+        number (sample named), an empty condition, or the same replicate named twice for
+        one condition and time.
+    """
+    path = Path(path)
+    _require_file(path, "sample sheet")
+    separator = _text_separator(path, "sample sheet")
+    header = [name.lower() for name in _read_header(path, separator, "sample sheet")]
+    for column in SAMPLE_SHEET_COLUMNS:
+        if header.count(column) > 1:
+            raise GloamError(
+                f"sample sheet {str(path)!r} has the column {column!r} more than once; keep one"
+            )
+    missing = [column for column in ("sample", "time") if column not in header]
+    if missing:
+        raise GloamError(
+            f"sample sheet {str(path)!r} lacks the column(s) {missing} (found {header}); "
+            "it needs columns sample and time, optionally replicate and condition, "
+            f"separated by {'tabs' if separator == chr(9) else 'commas'}"
+        )
+    try:
+        table = pd.read_csv(
+            path,
+            sep=separator,
+            header=None,
+            skiprows=1,
+            names=header,
+            dtype=str,
+            keep_default_na=False,
+            encoding="utf-8-sig",
+        )
+    except (pd.errors.ParserError, ValueError, UnicodeDecodeError, OSError) as error:
+        raise GloamError(
+            f"sample sheet {str(path)!r} could not be parsed ({' '.join(str(error).split())}); "
+            "check that every row has one value per column"
+        ) from error
+    columns = [column for column in SAMPLE_SHEET_COLUMNS if column in header]
+    table = table[columns].apply(lambda column: column.str.strip())
+    if table.empty:
+        raise GloamError(f"sample sheet {str(path)!r} has no rows; add one row per sample")
+    empty = np.flatnonzero(table["sample"].to_numpy() == "")
+    if empty.size:
+        raise GloamError(
+            f"sample sheet {str(path)!r}: row {int(empty[0]) + 1} has an empty sample name; "
+            "name every sample as in the matrix header"
+        )
+    if table["sample"].duplicated().any():
+        raise GloamError(
+            f"sample sheet {str(path)!r} lists samples more than once: "
+            f"{_name_duplicates(table['sample'])}; list each sample once"
+        )
+    times = pd.to_numeric(table["time"], errors="coerce")
+    bad = times.isna() | ~np.isfinite(times.to_numpy(dtype=float, na_value=np.nan))
+    if bad.any():
+        row = int(np.argmax(bad.to_numpy()))
+        raise GloamError(
+            f"sample sheet {str(path)!r}: time {table['time'].iloc[row]!r} of sample "
+            f"{table['sample'].iloc[row]!r} is not a finite number; write times as plain "
+            "numbers (e.g. 0, 2.5, 24) and give their unit once in the config"
+        )
+    table["time"] = times.astype(np.float64)
+    if "condition" in table:
+        empty = np.flatnonzero(table["condition"].to_numpy() == "")
+        if empty.size:
+            raise GloamError(
+                f"sample sheet {str(path)!r}: sample {table['sample'].iloc[empty[0]]!r} has "
+                "an empty condition; fill the condition column for every sample or drop it"
+            )
+    if "replicate" in table:
+        keys = [column for column in ("condition", "time", "replicate") if column in table]
+        clash = table.duplicated(keys, keep=False)
+        if clash.any():
+            names = table.loc[clash, "sample"].head(5).tolist()
+            raise GloamError(
+                f"sample sheet {str(path)!r}: samples {names} share the same "
+                f"{'/'.join(keys)}; give each replicate of a time point its own label"
+            )
+    return table.reset_index(drop=True)
