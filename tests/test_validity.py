@@ -9,6 +9,7 @@ partition coefficient; scikit-learn's ``make_blobs`` (PyPI) for data with known 
 from __future__ import annotations
 
 import math
+import warnings
 from types import SimpleNamespace
 
 import numpy as np
@@ -19,9 +20,10 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from hypothesis.extra.numpy import arrays
 from numpy.testing import assert_allclose
-from sklearn.datasets import make_blobs
+from sklearn.datasets import load_iris, make_blobs
 
-from gloam.errors import GloamError
+from gloam.errors import ConvergenceWarning, GloamError
+from gloam.fcm import fuzzy_cmeans
 from gloam.validity import (
     VALIDITY_COLUMNS,
     fukuyama_sugeno,
@@ -296,3 +298,37 @@ def test_recommendation_with_a_single_row_returns_that_c():
 def test_recommendation_rejects_unusable_tables(table, ratio):
     with pytest.raises(GloamError):
         recommend_n_clusters(table, collapse_ratio=ratio)
+
+
+# --- with gloam's own engine ------------------------------------------------------------------
+
+
+def _gloam_scan(X, cs, n_starts=5):
+    with warnings.catch_warnings():
+        # Surplus clusters (c > 3 on three blobs) converge slowly; the best start is still used.
+        warnings.simplefilter("ignore", ConvergenceWarning)
+        return {c: fuzzy_cmeans(X, c, 2.0, n_starts=n_starts, rng=0, tol=1e-5) for c in cs}
+
+
+@pytest.mark.parametrize("random_state", [3, 4])
+def test_recommendation_on_gloam_partitions_picks_three_for_three_clear_blobs(random_state):
+    """scikit-learn make_blobs (PyPI), three well-separated groups, gloam's engine: c = 3."""
+    X, _ = make_blobs(
+        n_samples=300, centers=3, n_features=5, cluster_std=1.0, center_box=(-15, 15),
+        random_state=random_state,
+    )
+    results = _gloam_scan(X, range(2, 8))
+    table = validity_table(X, {c: result.best() for c, result in results.items()})
+    assert recommend_n_clusters(table) == 3
+
+
+def test_iris_validity_is_sane():
+    """Fisher's iris data (shipped by scikit-learn). Validity studies report that indices
+    choose 2 or 3 clusters for iris, because versicolor and virginica overlap while setosa
+    stands apart (from memory: Pal & Bezdek 1995, IEEE Trans. Fuzzy Systems 3:370)."""
+    X, _ = load_iris(return_X_y=True)
+    results = _gloam_scan(X, range(2, 7), n_starts=10)
+    table = validity_table(X, {c: result.best() for c, result in results.items()})
+    assert recommend_n_clusters(table) in (2, 3)
+    # The optimal J_m cannot rise with c (Bezdek 1981); best-of-10 starts should show it.
+    assert table["objective"].is_monotonic_decreasing

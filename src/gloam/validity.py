@@ -31,6 +31,7 @@ import numpy as np
 import pandas as pd
 
 from gloam.errors import GloamError
+from gloam.fcm import squared_distances
 
 if TYPE_CHECKING:
     from gloam.fcm import FuzzyPartition
@@ -99,16 +100,6 @@ def _check_partition(
     if not (np.isfinite(m) and m > 1):
         raise GloamError(f"fuzzifier m must be a finite number > 1; got {m!r}")
     return X, V, U
-
-
-def _squared_distances(X: np.ndarray, V: np.ndarray) -> np.ndarray:
-    # BLAS form ||x||^2 - 2 x.v + ||v||^2: no (n, c, d) temporary for 60k genes x 30 clusters.
-    d2 = (
-        np.einsum("ij,ij->i", X, X)[:, None]
-        - 2.0 * (X @ V.T)
-        + np.einsum("ij,ij->i", V, V)[None, :]
-    )
-    return np.maximum(d2, 0.0, out=d2)
 
 
 def partition_coefficient(U: np.ndarray) -> float:
@@ -243,7 +234,7 @@ def xie_beni(X: np.ndarray, V: np.ndarray, U: np.ndarray, m: float) -> float:
     Xie and Beni (1991), IEEE TPAMI 13(8):841-847.
     """
     X, V, U = _check_partition(X, V, U, m)
-    compactness = float(np.einsum("ij,ij->", U**m, _squared_distances(X, V)))
+    compactness = float(np.einsum("ij,ij->", U**m, squared_distances(X, V)))
     separation = min_centroid_distance(V)
     if separation == 0.0:
         return float("inf")
@@ -284,7 +275,7 @@ def fukuyama_sugeno(X: np.ndarray, V: np.ndarray, U: np.ndarray, m: float) -> fl
     weights = U**m
     grand_mean = X.mean(axis=0)
     spread = V - grand_mean
-    compactness = np.einsum("ij,ij->", weights, _squared_distances(X, V))
+    compactness = np.einsum("ij,ij->", weights, squared_distances(X, V))
     separation = weights.sum(axis=0) @ np.einsum("id,id->i", spread, spread)
     return float(compactness - separation)
 
