@@ -122,7 +122,8 @@ def alignment_permutations(memberships: np.ndarray, reference_index: int) -> np.
     n_starts, _, c = U.shape
     if not 0 <= reference_index < n_starts:
         raise GloamError(f"reference start {reference_index} is not among the {n_starts} starts")
-    overlap = np.einsum("snk,nl->skl", U, U[reference_index])
+    # Batched BLAS product; einsum does this contraction about 3x slower.
+    overlap = np.matmul(U.transpose(0, 2, 1), U[reference_index])
     permutations = np.empty((n_starts, c), dtype=np.intp)
     for s in range(n_starts):
         rows, columns = linear_sum_assignment(overlap[s], maximize=True)
