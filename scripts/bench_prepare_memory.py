@@ -27,9 +27,6 @@ import tempfile
 import time
 from pathlib import Path
 
-import numpy as np
-import pandas as pd
-
 LIMIT_BYTES = 2 * 1024**3
 
 
@@ -38,7 +35,10 @@ def peak_rss_bytes() -> int:
     return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
 
 
-def write_inputs(directory: Path, n_genes: int, n_samples: int, seed: int) -> tuple[Path, Path]:
+def write_inputs(directory: Path, n_genes: int, n_samples: int, seed: int) -> None:
+    import numpy as np
+    import pandas as pd
+
     n_replicates, n_conditions = 2, 2
     n_times = max(3, n_samples // (n_replicates * n_conditions))
     rows = [
@@ -63,7 +63,6 @@ def write_inputs(directory: Path, n_genes: int, n_samples: int, seed: int) -> tu
     table.to_csv(matrix_path, sep="\t")
     sheet_path = directory / "samples.tsv"
     sheet.to_csv(sheet_path, sep="\t", index=False)
-    return matrix_path, sheet_path
 
 
 def child(mode: str, matrix_path: Path, sheet_path: Path, out_dir: Path) -> None:
@@ -90,9 +89,16 @@ def child(mode: str, matrix_path: Path, sheet_path: Path, out_dir: Path) -> None
     print(json.dumps({"peak_rss": peak_rss_bytes(), "seconds": seconds, "n_kept": n_kept}))
 
 
+def run(arguments: list[str]) -> subprocess.CompletedProcess[str]:
+    # Fresh processes from a parent that imported nothing heavy: Linux carries a process's
+    # peak RSS over exec, so a big parent would inflate every child's figure.
+    return subprocess.run(
+        [sys.executable, __file__, *arguments], capture_output=True, text=True, check=False
+    )
+
+
 def run_child(mode: str, matrix_path: Path, sheet_path: Path, out_dir: Path) -> dict:
-    command = [sys.executable, __file__, "--child", mode, str(matrix_path), str(sheet_path)]
-    result = subprocess.run([*command, str(out_dir)], capture_output=True, text=True, check=False)
+    result = run(["--child", mode, str(matrix_path), str(sheet_path), str(out_dir)])
     if result.returncode != 0:
         raise SystemExit(f"{mode} run failed:\n{result.stderr}")
     return json.loads(result.stdout.strip().splitlines()[-1])
@@ -108,7 +114,11 @@ def main() -> None:
     parser.add_argument("--samples", type=int, default=100)
     parser.add_argument("--seed", type=int, default=0)
     parser.add_argument("--child", nargs=4, metavar=("MODE", "MATRIX", "SHEET", "OUT"))
+    parser.add_argument("--write-inputs", type=Path, metavar="DIR", help=argparse.SUPPRESS)
     args = parser.parse_args()
+    if args.write_inputs:
+        write_inputs(args.write_inputs, args.genes, args.samples, args.seed)
+        return
     if args.child:
         mode, matrix, sheet, out = args.child
         child(mode, Path(matrix), Path(sheet), Path(out))
@@ -117,7 +127,13 @@ def main() -> None:
     with tempfile.TemporaryDirectory(prefix="gloam-bench-") as folder:
         directory = Path(folder)
         started = time.perf_counter()
-        matrix_path, sheet_path = write_inputs(directory, args.genes, args.samples, args.seed)
+        written = run(
+            ["--write-inputs", folder, "--genes", str(args.genes), "--samples", str(args.samples)]
+            + ["--seed", str(args.seed)]
+        )
+        if written.returncode != 0:
+            raise SystemExit(f"writing the inputs failed:\n{written.stderr}")
+        matrix_path, sheet_path = directory / "counts.tsv", directory / "samples.tsv"
         print(
             f"wrote {args.genes} x {args.samples} counts in {time.perf_counter() - started:.1f} s"
         )
