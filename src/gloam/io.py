@@ -36,6 +36,12 @@ __all__ = [
 ]
 
 
+def _current_umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
+
+
 @contextlib.contextmanager
 def atomic_output(path: str | os.PathLike[str]) -> Iterator[Path]:
     """Yield a temporary path beside ``path``; rename it to ``path`` on success.
@@ -54,6 +60,8 @@ def atomic_output(path: str | os.PathLike[str]) -> Iterator[Path]:
     temporary = Path(temporary_name)
     try:
         yield temporary
+        # mkstemp creates 0600; give the result the mode an ordinary new file would have.
+        os.chmod(temporary, 0o666 & ~_current_umask())
         os.replace(temporary, target)
     finally:
         if temporary.exists():
