@@ -5,7 +5,8 @@ Functions take plain arrays and tables (no files) and return a
 and PDF.  The look is gloam's own: white panels with only the left and bottom
 spines, sampled time points marked as a rug under each profile panel so uneven
 spacing stays visible, gene lines shaded by membership with the perceptually
-uniform ``cividis`` colormap, and the centroid drawn on top in one accent colour.
+uniform ``cividis`` colormap (reversed: firm members dark), and the centroid drawn
+on top in one accent colour.
 """
 
 from __future__ import annotations
@@ -38,8 +39,9 @@ __all__ = [
     "save_figure",
 ]
 
-#: Colormap for memberships: perceptually uniform and readable in greyscale.
-MEMBERSHIP_CMAP = "cividis"
+#: Colormap for memberships: perceptually uniform and readable in greyscale; reversed so
+#: that genes firmly in a cluster are dark on the white panel and loose ones fade out.
+MEMBERSHIP_CMAP = "cividis_r"
 _ACCENT = "#c8553d"
 _MUTED = "#6b7280"
 _RC = {
@@ -64,7 +66,10 @@ _INDEX_LABELS: dict[str, tuple[str, str]] = {
     "partition_entropy": ("partition entropy (nats)", "lower is crisper"),
     "xie_beni": ("Xie–Beni index (unitless)", "lower is better"),
     "fukuyama_sugeno": ("Fukuyama–Sugeno index (z-score² units)", "lower is better"),
-    "min_centroid_distance": ("min. centroid distance (z-score units)", "collapse near 0"),
+    "min_centroid_distance": (
+        "min. centroid distance (squared z-score units)",
+        "sharp fall = too many",
+    ),
     "mean_stability": ("mean stability (share of starts)", "higher is steadier"),
 }
 
@@ -211,7 +216,8 @@ def plot_cluster_profiles(
                     lines,
                     colors=cmap(norm(top_membership[members])),
                     linewidths=0.6,
-                    alpha=0.85,
+                    # Big clusters would otherwise turn into a solid band.
+                    alpha=float(np.clip(4.0 / np.sqrt(max(members.size, 1)), 0.06, 0.9)),
                     rasterized=True,
                 )
                 axis.add_collection(collection)
@@ -241,15 +247,23 @@ def plot_cluster_profiles(
             axis.set_visible(False)
         _set_time_ticks(axes.flat[0], segments)
         axis_last = axes.flat[min(n_clusters, axes.size) - 1]
-        axis_last.set_xlim(positions.min() - 0.02 * np.ptp(positions),
-                           positions.max() + 0.02 * np.ptp(positions))
+        axis_last.set_xlim(
+            positions.min() - 0.02 * np.ptp(positions), positions.max() + 0.02 * np.ptp(positions)
+        )
         for row in range(n_rows):
             axes[row, 0].set_ylabel(value_label)
         for axis in axes.flat[:n_clusters]:
             if len(segments) > 1:
                 for segment in segments:
-                    axis.text(segment.base + segment.width / 2, y_limit, segment.name,
-                              ha="center", va="top", fontsize=7, color=_MUTED)
+                    axis.text(
+                        segment.base + segment.width / 2,
+                        y_limit,
+                        segment.name,
+                        ha="center",
+                        va="top",
+                        fontsize=7,
+                        color=_MUTED,
+                    )
         for axis in axes[-1, :]:
             axis.set_xlabel(f"time ({time_unit})")
         for k in range(n_clusters, axes.size):
@@ -270,10 +284,10 @@ def plot_validity(table: pd.DataFrame, chosen: int) -> Figure:
     Parameters
     ----------
     table : DataFrame
-        One row per number of clusters: column ``n_clusters`` plus one column per index
-        (any of objective, partition_coefficient, partition_entropy, xie_beni,
-        fukuyama_sugeno, min_centroid_distance, mean_stability; other numeric columns
-        are drawn with their column name as label).
+        One row per number of clusters: column ``n_clusters`` plus any of the index
+        columns objective, partition_coefficient, partition_entropy, xie_beni,
+        fukuyama_sugeno, min_centroid_distance, mean_stability (one panel each; other
+        columns are ignored).
     chosen : int
         The number of clusters used downstream.
 
@@ -284,11 +298,12 @@ def plot_validity(table: pd.DataFrame, chosen: int) -> Figure:
     if "n_clusters" not in table.columns or table.empty:
         raise GloamError("validity plot needs a non-empty table with an n_clusters column")
     table = table.sort_values("n_clusters")
-    columns = [
-        column
-        for column in table.columns
-        if column != "n_clusters" and pd.api.types.is_numeric_dtype(table[column])
-    ]
+    columns = [column for column in _INDEX_LABELS if column in table.columns]
+    if not columns:
+        raise GloamError(
+            f"validity table has none of the index columns {list(_INDEX_LABELS)}; "
+            "build it with gloam.validity.validity_table"
+        )
     n_cols = min(3, len(columns))
     n_rows = int(np.ceil(len(columns) / n_cols))
     c_values = table["n_clusters"].to_numpy()
@@ -302,24 +317,35 @@ def plot_validity(table: pd.DataFrame, chosen: int) -> Figure:
             layout="constrained",
         )
         for axis, column in zip(axes.flat, columns, strict=False):
-            label, direction = _INDEX_LABELS.get(column, (column, ""))
+            label, direction = _INDEX_LABELS[column]
             y = table[column].to_numpy(dtype=float)
             axis.axvspan(chosen - 0.4, chosen + 0.4, color="#fde68a", alpha=0.6, zorder=0)
             axis.plot(c_values, y, color="#1f2937", linewidth=1.2, marker="o", markersize=3.5)
             hit = c_values == chosen
-            axis.plot(c_values[hit], y[hit], linestyle="none", marker="o", markersize=6.5,
-                      color=_ACCENT, zorder=4)
+            axis.plot(
+                c_values[hit],
+                y[hit],
+                linestyle="none",
+                marker="o",
+                markersize=6.5,
+                color=_ACCENT,
+                zorder=4,
+            )
             axis.set_ylabel(label)
             if direction:
                 axis.set_title(direction, loc="right", fontsize=7.5, color=_MUTED)
             axis.xaxis.set_major_locator(MaxNLocator(integer=True))
-        for axis in axes.flat[len(columns):]:
+        for axis in axes.flat[len(columns) :]:
             axis.set_visible(False)
-        for axis in axes.flat[:len(columns)]:
+        for axis in axes.flat[: len(columns)]:
             axis.set_xlabel("number of clusters c")
             axis.xaxis.set_tick_params(labelbottom=True)
-        figure.suptitle(f"Cluster validity over c (chosen c = {chosen}, shaded)", x=0.01,
-                        ha="left", fontsize=9.5)
+        figure.suptitle(
+            f"Cluster validity over c (chosen c = {chosen}, shaded)",
+            x=0.01,
+            ha="left",
+            fontsize=9.5,
+        )
     return figure
 
 
@@ -348,38 +374,72 @@ def plot_fuzzifier_curve(
     has_distance = "min_centroid_distance" in curve.columns and not curve.empty
     with plt.rc_context(_RC):
         figure, axes = plt.subplots(
-            1, 2 if has_distance else 1, figsize=(7.0 if has_distance else 3.8, 2.9),
-            squeeze=False, layout="constrained",
+            1,
+            2 if has_distance else 1,
+            figsize=(7.0 if has_distance else 3.8, 2.9),
+            squeeze=False,
+            layout="constrained",
         )
         axis = axes[0, 0]
         if curve.empty:
-            axis.text(0.5, 0.5, f"m = {m:.3g} ({method or 'fixed'}); no randomised-data curve",
-                      ha="center", va="center", transform=axis.transAxes)
+            axis.text(
+                0.5,
+                0.5,
+                f"m = {m:.3g} ({method or 'fixed'}); no randomised-data curve",
+                ha="center",
+                va="center",
+                transform=axis.transAxes,
+            )
             axis.set_xlabel("fuzzifier m (unitless)")
             axis.set_ylabel("mean largest membership (0–1)")
         else:
             curve = curve.sort_values("m")
-            axis.plot(curve["m"], curve["mean_max_membership"], color="#1f2937", marker="o",
-                      markersize=3.5, linewidth=1.2, label="randomised data")
+            axis.plot(
+                curve["m"],
+                curve["mean_max_membership"],
+                color="#1f2937",
+                marker="o",
+                markersize=3.5,
+                linewidth=1.2,
+                label="randomised data",
+            )
             if "uniform_level" in curve.columns:
-                axis.plot(curve["m"], curve["uniform_level"], color=_MUTED, linestyle=":",
-                          linewidth=1.2, label="no structure (1/c)")
+                axis.plot(
+                    curve["m"],
+                    curve["uniform_level"],
+                    color=_MUTED,
+                    linestyle=":",
+                    linewidth=1.2,
+                    label="no structure (1/c)",
+                )
             axis.set_xlabel("fuzzifier m (unitless)")
             axis.set_ylabel("mean largest membership (0–1)")
             if has_distance:
                 right = axes[0, 1]
-                right.plot(curve["m"], curve["min_centroid_distance"], color="#1f2937",
-                           marker="o", markersize=3.5, linewidth=1.2)
+                right.plot(
+                    curve["m"],
+                    curve["min_centroid_distance"],
+                    color="#1f2937",
+                    marker="o",
+                    markersize=3.5,
+                    linewidth=1.2,
+                )
                 right.set_xlabel("fuzzifier m (unitless)")
-                right.set_ylabel("min. centroid distance (z-score units)")
+                right.set_ylabel("min. centroid distance (squared z-score units)")
             for target in axes.flat:
                 target.axvline(m, color=_ACCENT, linewidth=1.6, label=f"used m = {m:.3g}")
                 if formula_m is not None and not np.isclose(formula_m, m):
-                    target.axvline(formula_m, color="#2563eb", linewidth=1.0, linestyle="--",
-                                   label=f"formula m = {formula_m:.3g}")
+                    target.axvline(
+                        formula_m,
+                        color="#2563eb",
+                        linewidth=1.0,
+                        linestyle="--",
+                        label=f"formula m = {formula_m:.3g}",
+                    )
             axis.legend(frameon=False, fontsize=7)
-        figure.suptitle(f"Fuzzifier ({method})" if method else "Fuzzifier", x=0.01, ha="left",
-                        fontsize=9.5)
+        figure.suptitle(
+            f"Fuzzifier ({method})" if method else "Fuzzifier", x=0.01, ha="left", fontsize=9.5
+        )
     return figure
 
 
@@ -411,8 +471,15 @@ def plot_centroid_correlation(
         axis.spines[:].set_visible(False)
         if n_clusters <= 16:
             for (i, j), value in np.ndenumerate(correlation):
-                axis.text(j, i, f"{value:.2f}", ha="center", va="center", fontsize=6.5,
-                          color="white" if abs(value) > 0.6 else "#111827")
+                axis.text(
+                    j,
+                    i,
+                    f"{value:.2f}",
+                    ha="center",
+                    va="center",
+                    fontsize=6.5,
+                    color="white" if abs(value) > 0.6 else "#111827",
+                )
         colourbar = figure.colorbar(image, ax=axis, shrink=0.8)
         colourbar.set_label("Pearson correlation of centroids (−1 to 1)")
         axis.set_xlabel("cluster")

@@ -1,0 +1,17 @@
+"""Snakemake rule ``select``: validity indices over c, the recommended and the used c."""
+
+from gloam.errors import exit_on_user_error
+from gloam.stages import rule_environment, run_select
+
+job = snakemake  # noqa: F821 -- injected by Snakemake's script directive
+
+with rule_environment(job.log[0], job.threads):
+    exit_on_user_error(
+        lambda: run_select(
+            job.input.prepared,
+            list(job.input.scans),
+            job.params.settings,
+            job.output.validity,
+            job.output.selection,
+        )
+    )

@@ -1,0 +1,275 @@
+# Config and datasets validation, the table of runs, path helpers and resource estimates.
+#
+# A "run" is one dataset under one set of settings: run id "<dataset>" without variants,
+# "<dataset>.<variant>" with them, and "<dataset>.<condition>[.<variant>]" when conditions are
+# clustered separately. Every result of a run lives under <results_dir>/<run>/.
+
+import copy
+import math
+import re
+from pathlib import Path
+
+import pandas as pd
+from snakemake.exceptions import WorkflowError
+from snakemake.utils import validate
+
+from gloam.errors import GloamError
+from gloam.io import read_sample_sheet
+
+
+validate(config, schema="../schemas/config.schema.yaml")
+
+RESULTS = config["results_dir"].rstrip("/")
+DEMO_DIR = config["demo"]["out_dir"].rstrip("/")
+NAME_PATTERN = re.compile(r"^[A-Za-z0-9_-]+$")
+SETTING_SECTIONS = ("preparation", "fuzzifier", "scan", "selection")
+
+
+def _read_datasets(path):
+    if not Path(path).is_file():
+        raise WorkflowError(
+            f"datasets table {path!r} (config key 'datasets') does not exist; create it with "
+            "columns name, matrix, samples, value_type or point the key at your table"
+        )
+    table = pd.read_csv(path, sep="\t", dtype=str, keep_default_na=False, comment="#")
+    table.columns = [column.strip() for column in table.columns]
+    if "name" not in table.columns:
+        raise WorkflowError(
+            f"datasets table {path!r} has no 'name' column (found {list(table.columns)}); it "
+            "needs tab-separated columns name, matrix, samples, value_type"
+        )
+    if table.empty:
+        raise WorkflowError(f"datasets table {path!r} has no rows; add one row per dataset")
+    table = table.apply(lambda column: column.str.strip())
+    duplicated = table["name"][table["name"].duplicated()].tolist()
+    if duplicated:
+        raise WorkflowError(f"datasets table {path!r} names datasets twice: {duplicated}")
+    return table.set_index("name", drop=False)
+
+
+DATASETS = _read_datasets(config["datasets"])
+validate(DATASETS, schema="../schemas/datasets.schema.yaml")
+
+
+def _merged_settings(variant, overrides):
+    """Top-level settings with one variant's overrides on top, validated like the config."""
+    merged = copy.deepcopy(config)
+    for section in SETTING_SECTIONS:
+        merged[section] = {**config[section], **overrides.get(section, {})}
+    merged["variants"] = {}
+    try:
+        validate(merged, schema="../schemas/config.schema.yaml")
+    except WorkflowError as error:
+        raise WorkflowError(f"variant {variant!r} in config 'variants' is invalid: {error}")
+    return {section: merged[section] for section in SETTING_SECTIONS}
+
+
+def _conditions(dataset):
+    """Conditions of a dataset, read from its sample sheet when the workflow starts."""
+    path = DATASETS.loc[dataset, "samples"]
+    if not Path(path).is_file():
+        raise WorkflowError(
+            f"dataset {dataset!r}: preparation.conditions is 'separate', which needs the sample "
+            f"sheet {path!r} to exist before the workflow starts (conditions become runs); "
+            "create it or use conditions: concatenate"
+        )
+    try:
+        sheet = read_sample_sheet(path)
+    except GloamError as error:
+        raise WorkflowError(f"dataset {dataset!r}: {error}")
+    if "condition" not in sheet.columns:
+        return [None]
+    names = list(dict.fromkeys(sheet["condition"]))
+    bad = [name for name in names if not NAME_PATTERN.match(name)]
+    if bad:
+        raise WorkflowError(
+            f"dataset {dataset!r}: condition names {bad} in {path!r} cannot be part of a run id "
+            "with conditions: separate; use letters, digits, '_' and '-' only"
+        )
+    return names
+
+
+def _build_runs():
+    variants = config["variants"] or {None: {}}
+    settings_of = {
+        variant: _merged_settings(variant, overrides) for variant, overrides in variants.items()
+    }
+    runs = {}
+    for dataset, row in DATASETS.iterrows():
+        for variant, settings in settings_of.items():
+            scan = settings["scan"]
+            if scan["min_clusters"] > scan["max_clusters"]:
+                raise WorkflowError(
+                    f"scan.min_clusters ({scan['min_clusters']}) is larger than "
+                    f"scan.max_clusters ({scan['max_clusters']})"
+                    + (f" in variant {variant!r}" if variant else "")
+                    + "; make min_clusters <= max_clusters"
+                )
+            separate = settings["preparation"]["conditions"] == "separate"
+            for condition in _conditions(dataset) if separate else [None]:
+                run = ".".join(part for part in (dataset, condition, variant) if part)
+                runs[run] = {
+                    "run": run,
+                    "dataset": dataset,
+                    "condition": condition,
+                    "variant": variant,
+                    "value_type": row["value_type"],
+                    "layer": row["layer"] or None,
+                    **settings,
+                }
+    return runs
+
+
+RUNS = _build_runs()
+
+
+wildcard_constraints:
+    run="|".join(re.escape(run) for run in RUNS),
+    c=r"\d+",
+
+
+# ---------------------------------------------------------------- path helpers
+
+
+def run_path(run, name):
+    """Path of file ``name`` inside the results folder of ``run``."""
+    return f"{RESULTS}/{run}/{name}"
+
+
+def get_run(wildcards):
+    try:
+        return RUNS[wildcards.run]
+    except KeyError:
+        raise WorkflowError(f"unknown run {wildcards.run!r}; known runs: {sorted(RUNS)}")
+
+
+def get_dataset_files(wildcards):
+    dataset = DATASETS.loc[get_run(wildcards)["dataset"]]
+    return {"matrix": dataset["matrix"], "samples": dataset["samples"]}
+
+
+def cluster_numbers(run):
+    """Every c scanned for ``run``: the configured range plus a fixed c if one is set."""
+    scan = RUNS[run]["scan"]
+    numbers = set(range(scan["min_clusters"], scan["max_clusters"] + 1))
+    fixed = RUNS[run]["selection"]["n_clusters"]
+    if fixed != "auto":
+        numbers.add(int(fixed))
+    return sorted(numbers)
+
+
+def get_scan_files(wildcards):
+    return [run_path(wildcards.run, f"scan/c{c}.npz") for c in cluster_numbers(wildcards.run)]
+
+
+FIGURES = ("profiles", "validity", "fuzzifier", "centroid_correlation")
+
+
+def run_outputs(run):
+    """Every file a finished run leaves behind (the targets of rule all)."""
+    files = [
+        run_path(run, name)
+        for name in (
+            "memberships.tsv",
+            "centroids.tsv",
+            "validity.tsv",
+            "selection.json",
+            "gloam.h5ad",
+            "genesets",
+        )
+    ]
+    files += [
+        run_path(run, f"figures/{figure}.{suffix}")
+        for figure in FIGURES
+        for suffix in ("png", "pdf")
+    ]
+    return files
+
+
+def get_final_outputs(wildcards=None):
+    files = [f"{RESULTS}/summary.tsv"]
+    for run in RUNS:
+        files += run_outputs(run)
+    return files
+
+
+def get_summary_inputs(wildcards):
+    return {
+        "fuzzifier": [run_path(run, "fuzzifier.json") for run in RUNS],
+        "selection": [run_path(run, "selection.json") for run in RUNS],
+        "memberships": [run_path(run, "memberships.tsv") for run in RUNS],
+    }
+
+
+# ---------------------------------------------------------------- parameters for scripts
+
+
+def get_preparation_params(wildcards):
+    run = get_run(wildcards)
+    return {
+        **run["preparation"],
+        "value_type": run["value_type"],
+        "condition": run["condition"],
+        "layer": run["layer"],
+    }
+
+
+def get_run_settings(wildcards):
+    """Everything recorded in gloam.h5ad about how a run was made."""
+    run = get_run(wildcards)
+    return {
+        "run": run["run"],
+        "dataset": run["dataset"],
+        "condition": run["condition"],
+        "variant": run["variant"],
+        "seed": config["seed"],
+        **{section: run[section] for section in SETTING_SECTIONS},
+    }
+
+
+# ---------------------------------------------------------------- threads and resources
+#
+# Estimates scale with the size of the rule's input on disk (MB); the resources section of
+# the config replaces any of them per rule. Memory grows with the attempt number, so a job
+# resubmitted after running out of memory (--retries) asks for more.
+
+
+def _override(rule, key):
+    return config["resources"].get(rule, {}).get(key)
+
+
+def get_threads(rule, default):
+    return _override(rule, "threads") or default
+
+
+def _estimate(rule, key, value):
+    chosen = _override(rule, key)
+    return int(chosen) if chosen else int(math.ceil(value))
+
+
+def mem_mb_for(rule, base_mb, mb_per_input_mb):
+    def mem_mb(wildcards, input, attempt):
+        return attempt * _estimate(rule, "mem_mb", base_mb + mb_per_input_mb * input.size_mb)
+
+    return mem_mb
+
+
+def runtime_for(rule, base_min, min_per_input_mb):
+    def runtime(wildcards, input, attempt):
+        return attempt * _estimate(rule, "runtime", base_min + min_per_input_mb * input.size_mb)
+
+    return runtime
+
+
+def scan_mem_mb(wildcards, input, attempt):
+    # All starts are kept: memberships of n_starts x n_genes x c beside the data.
+    scan = get_run(wildcards)["scan"]
+    c = int(wildcards.c)
+    work = input.size_mb * (6 + scan["n_starts"] * c / 8)
+    return attempt * _estimate("scan", "mem_mb", 500 + work)
+
+
+def scan_runtime(wildcards, input, attempt):
+    scan = get_run(wildcards)["scan"]
+    c = int(wildcards.c)
+    return attempt * _estimate("scan", "runtime", 5 + input.size_mb * scan["n_starts"] * c / 40)

@@ -1,0 +1,24 @@
+# One job per (run, c) with every random start inside; all starts are kept in the file.
+
+
+rule scan:
+    input:
+        prepared=run_path("{run}", "prepared/prepared.h5ad"),
+        fuzzifier=run_path("{run}", "fuzzifier.json"),
+    output:
+        scan=run_path("{run}", "scan/c{c}.npz"),
+    params:
+        settings=lambda wildcards: get_run(wildcards)["scan"],
+        seed=config["seed"],
+    log:
+        "logs/{run}/scan_c{c}.log",
+    benchmark:
+        "benchmarks/{run}/scan_c{c}.tsv"
+    threads: get_threads("scan", 2)
+    resources:
+        mem_mb=scan_mem_mb,
+        runtime=scan_runtime,
+    conda:
+        "../envs/gloam.yaml"
+    script:
+        "../../scripts/rule_scan.py"
