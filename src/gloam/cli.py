@@ -124,8 +124,207 @@ def _run_prepare(args: argparse.Namespace) -> int:
     return 0
 
 
+def _add_demo(subparsers: argparse._SubParsersAction) -> None:
+    parser = subparsers.add_parser(
+        "demo",
+        help="write the invented cold-response demo data (counts, sample sheet, truth)",
+        description=(
+            "Simulate the built-in demo: leaves of an invented alpine herb moved to 4 degC, "
+            "sampled at 10 uneven times over 48 h in replicates. Writes counts.tsv, "
+            "samples.tsv and truth.tsv (the planted response of every gene) into --out-dir."
+        ),
+    )
+    parser.add_argument("--out-dir", type=Path, default=Path("demo_data"), help="(demo_data)")
+    parser.add_argument("--seed", type=int, default=20261201, help="generator seed (20261201)")
+    parser.add_argument("--n-genes", type=int, default=3000, help="number of genes (3000)")
+    parser.add_argument("--n-replicates", type=int, default=3, help="replicates per time (3)")
+    parser.set_defaults(run=_run_demo)
+
+
+def _run_demo(args: argparse.Namespace) -> int:
+    from gloam.demo import write_demo
+
+    paths = write_demo(
+        args.out_dir, seed=args.seed, n_genes=args.n_genes, n_replicates=args.n_replicates
+    )
+    print(f"gloam: demo written: {', '.join(str(path) for path in paths)}")
+    return 0
+
+
+def _cluster_range(text: str) -> list[int]:
+    low, _, high = text.partition("-")
+    try:
+        numbers = list(range(int(low), int(high or low) + 1))
+    except ValueError:
+        numbers = []
+    if not numbers or numbers[0] < 2:
+        raise GloamError(
+            f"--clusters {text!r} is not a range of cluster numbers; write e.g. 2-10 or 5 "
+            "(each at least 2)"
+        )
+    return numbers
+
+
+def _add_cluster(subparsers: argparse._SubParsersAction) -> None:
+    parser = subparsers.add_parser(
+        "cluster",
+        help="cluster a prepared matrix: fuzzifier, scan over c, selection, consensus, exports",
+        description=(
+            "Run every clustering stage on one prepared.h5ad (from `gloam prepare`) in this "
+            "process, writing the same files as the workflow's results/<run>/ folder into "
+            "--out-dir. For many datasets or a cluster use the workflow (`gloam run`)."
+        ),
+    )
+    parser.add_argument("--prepared", required=True, type=Path, help="prepared.h5ad")
+    parser.add_argument("--out-dir", required=True, type=Path, help="directory for the results")
+    parser.add_argument("--clusters", default="2-10", help="range of c to scan (2-10)")
+    parser.add_argument(
+        "--n-clusters",
+        default="auto",
+        help="c to use: auto (from the validity indices) or a number",
+    )
+    parser.add_argument("--m", default="auto", help="fuzzifier: auto | randomised | number > 1")
+    parser.add_argument("--n-starts", type=int, default=20, help="random starts per c (20)")
+    parser.add_argument("--tol", type=float, default=1e-4, help="convergence tolerance (1e-4)")
+    parser.add_argument("--max-iter", type=int, default=500, help="iteration cap (500)")
+    parser.add_argument("--seed", type=int, default=1, help="seed of every random choice (1)")
+    parser.add_argument(
+        "--thresholds", default="0.5,0.7", help="core membership thresholds, comma-separated"
+    )
+    parser.add_argument("--time-unit", default="h", help="unit of the time axis (h)")
+    parser.set_defaults(run=_run_cluster)
+
+
+def _run_cluster(args: argparse.Namespace) -> int:
+    from gloam import stages
+
+    numbers = _cluster_range(args.clusters)
+    fixed: str | int = "auto"
+    if args.n_clusters != "auto":
+        try:
+            fixed = int(args.n_clusters)
+        except ValueError:
+            raise GloamError(
+                f"--n-clusters {args.n_clusters!r} must be auto or a whole number >= 2"
+            ) from None
+        numbers = sorted({*numbers, fixed})
+    try:
+        m: str | float = args.m if args.m in ("auto", "randomised") else float(args.m)
+        thresholds = [float(value) for value in args.thresholds.split(",") if value.strip()]
+    except ValueError:
+        raise GloamError(
+            f"--m {args.m!r} must be auto, randomised or a number, and --thresholds "
+            f"{args.thresholds!r} comma-separated numbers"
+        ) from None
+    out = args.out_dir
+    stages.run_fuzzifier(
+        args.prepared,
+        {"m": m, "n_clusters_check": 6},
+        args.seed,
+        out / "fuzzifier.json",
+        out / "fuzzifier_curve.tsv",
+    )
+    scan_settings = {
+        "n_starts": args.n_starts,
+        "tol": args.tol,
+        "max_iter": args.max_iter,
+        "init": "kmeans++",
+        "precision": "float64",
+    }
+    scans = [out / "scan" / f"c{c}.npz" for c in numbers]
+    for c, path in zip(numbers, scans, strict=True):
+        stages.run_scan(args.prepared, c, out / "fuzzifier.json", scan_settings, args.seed, path)
+    stages.run_select(
+        args.prepared, scans, {"n_clusters": fixed}, out / "validity.tsv", out / "selection.json"
+    )
+    stages.run_consensus(args.prepared, scans, out / "selection.json", out / "consensus.npz")
+    stages.export_tables(
+        args.prepared, out / "consensus.npz", out / "memberships.tsv", out / "centroids.tsv"
+    )
+    stages.export_gene_sets(out / "memberships.tsv", thresholds, out / "genesets")
+    settings = {"seed": args.seed, "fuzzifier": {"m": m}, "scan": scan_settings}
+    stages.export_h5ad(
+        args.prepared,
+        out / "consensus.npz",
+        out / "fuzzifier.json",
+        out / "selection.json",
+        settings,
+        out / "gloam.h5ad",
+    )
+    figures = out / "figures"
+    stages.figure_profiles(
+        args.prepared,
+        out / "memberships.tsv",
+        out / "centroids.tsv",
+        thresholds,
+        args.time_unit,
+        figures / "profiles.png",
+        figures / "profiles.pdf",
+    )
+    stages.figure_validity(
+        out / "validity.tsv",
+        out / "selection.json",
+        figures / "validity.png",
+        figures / "validity.pdf",
+    )
+    stages.figure_fuzzifier(
+        out / "fuzzifier.json",
+        out / "fuzzifier_curve.tsv",
+        figures / "fuzzifier.png",
+        figures / "fuzzifier.pdf",
+    )
+    stages.figure_centroid_correlation(
+        out / "centroids.tsv",
+        figures / "centroid_correlation.png",
+        figures / "centroid_correlation.pdf",
+    )
+    print(f"gloam: clustered -> {out}")
+    return 0
+
+
+def _add_run(subparsers: argparse._SubParsersAction) -> None:
+    parser = subparsers.add_parser(
+        "run",
+        help="run the Snakemake workflow (the demo unless the config says otherwise)",
+        description=(
+            "Run the gloam Snakemake workflow of a checkout: `gloam run --cores 2` in the "
+            "checkout runs the demo. Arguments after `--` go to Snakemake unchanged "
+            "(e.g. -- --dry-run, -- --profile config/profiles/slurm)."
+        ),
+    )
+    parser.add_argument(
+        "--snakefile", type=Path, default=Path("Snakefile"), help="the workflow (./Snakefile)"
+    )
+    parser.add_argument("--configfile", type=Path, help="config file (config/config.yaml)")
+    parser.add_argument("--cores", default="all", help="cores to use (all)")
+    parser.add_argument("snakemake_args", nargs=argparse.REMAINDER, help="passed to Snakemake")
+    parser.set_defaults(run=_run_workflow)
+
+
+def _run_workflow(args: argparse.Namespace) -> int:
+    import subprocess
+
+    if not args.snakefile.is_file():
+        raise GloamError(
+            f"workflow {str(args.snakefile)!r} not found; run `gloam run` inside a gloam "
+            "checkout or give --snakefile path/to/Snakefile"
+        )
+    command = [sys.executable, "-m", "snakemake", "--snakefile", str(args.snakefile)]
+    command += ["--cores", str(args.cores)]
+    if args.configfile is not None:
+        command += ["--configfile", str(args.configfile)]
+    extra = list(args.snakemake_args)
+    command += extra[1:] if extra[:1] == ["--"] else extra
+    return subprocess.call(command)
+
+
 #: One declaring function per subcommand; add a new subcommand by appending here.
-SUBCOMMANDS: tuple[Callable[[argparse._SubParsersAction], None], ...] = (_add_prepare,)
+SUBCOMMANDS: tuple[Callable[[argparse._SubParsersAction], None], ...] = (
+    _add_prepare,
+    _add_demo,
+    _add_cluster,
+    _add_run,
+)
 
 
 def build_parser() -> argparse.ArgumentParser:

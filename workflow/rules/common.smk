@@ -272,4 +272,4 @@ def scan_mem_mb(wildcards, input, attempt):
 def scan_runtime(wildcards, input, attempt):
     scan = get_run(wildcards)["scan"]
     c = int(wildcards.c)
-    return attempt * _estimate("scan", "runtime", 5 + input.size_mb * scan["n_starts"] * c / 40)
+    return attempt * _estimate("scan", "runtime", 10 + input.size_mb * scan["n_starts"] * c / 600)
