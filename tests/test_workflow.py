@@ -1,0 +1,424 @@
+"""End-to-end tests of the Snakemake workflow on a small generated dataset.
+
+Every test runs the real workflow (``python -m snakemake`` in a subprocess) in a temporary
+directory with a tiny config: 400 demo genes, c from 2 to 6, a handful of starts.  The
+main run happens once per module; tests that change things work on a copy of it.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import os
+import re
+import shutil
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import anndata
+import numpy as np
+import pandas as pd
+import pytest
+import yaml
+from sklearn.metrics import adjusted_rand_score
+
+from gloam.demo import PLANTED_RESPONSES
+
+REPO = Path(__file__).resolve().parents[1]
+SNAKEFILE = REPO / "Snakefile"
+RUN = "tiny"
+N_CLUSTERS = len(PLANTED_RESPONSES)
+THRESHOLDS = [0.5, 0.7]
+
+BASE_CONFIG = {
+    "datasets": "datasets.tsv",
+    "seed": 7,
+    "demo": {"out_dir": "demo", "n_genes": 400, "seed": 11},
+    "preparation": {"min_sd": 0.3},
+    "scan": {"min_clusters": 2, "max_clusters": 6, "n_starts": 5},
+    # The planted number of responses, so recovery is judged on the right c; the automatic
+    # choice is covered by the validity tests of gloam.validity.
+    "selection": {"n_clusters": N_CLUSTERS},
+    "genesets": {"thresholds": THRESHOLDS},
+}
+
+pytestmark = pytest.mark.slow
+
+
+def write_workdir(directory: Path, config: dict) -> Path:
+    directory.mkdir(parents=True, exist_ok=True)
+    (directory / "config.yaml").write_text(yaml.safe_dump(config), encoding="utf-8")
+    (directory / "datasets.tsv").write_text(
+        f"name\tmatrix\tsamples\tvalue_type\n{RUN}\tdemo/counts.tsv\tdemo/samples.tsv\tcounts\n",
+        encoding="utf-8",
+    )
+    return directory
+
+
+def snakemake_command(directory: Path, *args: str) -> list[str]:
+    return [
+        sys.executable,
+        "-m",
+        "snakemake",
+        "--snakefile",
+        str(SNAKEFILE),
+        "--directory",
+        str(directory),
+        "--configfile",
+        str(directory / "config.yaml"),
+        "--cores",
+        "2",
+        *args,
+    ]
+
+
+def snakemake(directory: Path, *args: str, check: bool = True) -> subprocess.CompletedProcess:
+    result = subprocess.run(
+        snakemake_command(directory, *args), capture_output=True, text=True, timeout=600
+    )
+    if check and result.returncode != 0:
+        raise AssertionError(f"snakemake {args} failed:\n{result.stdout}\n{result.stderr}")
+    return result
+
+
+def planned_rules(directory: Path) -> dict[str, int]:
+    """Rules a dry run would execute, parsed from Snakemake's 'Job stats' table."""
+    result = snakemake(directory, "--dry-run", "--quiet", "rules")
+    output = result.stdout + result.stderr
+    if "Nothing to be done" in output:
+        return {}
+    table = output.split("Job stats:", 1)[1]
+    rows = re.findall(r"^(\w+)\s+(\d+)$", table, flags=re.MULTILINE)
+    return {rule: int(count) for rule, count in rows if rule != "total"}
+
+
+@pytest.fixture(scope="module")
+def finished(tmp_path_factory) -> Path:
+    directory = write_workdir(tmp_path_factory.mktemp("workflow") / "run", BASE_CONFIG)
+    snakemake(directory)
+    return directory
+
+
+def results(directory: Path) -> Path:
+    return directory / "results" / RUN
+
+
+# ------------------------------------------------------------------ outputs of one run
+
+
+def test_every_declared_output_exists(finished):
+    out = results(finished)
+    for name in (
+        "prepared/prepared.h5ad",
+        "prepared/zscores.tsv",
+        "prepared/gene_report.tsv",
+        "prepared/summary.tsv",
+        "fuzzifier.json",
+        "fuzzifier_curve.tsv",
+        "validity.tsv",
+        "selection.json",
+        "consensus.npz",
+        "memberships.tsv",
+        "centroids.tsv",
+        "gloam.h5ad",
+    ):
+        assert (out / name).stat().st_size > 0, name
+    for c in range(2, 7):
+        assert (out / "scan" / f"c{c}.npz").is_file()
+    assert (finished / "results" / "summary.tsv").is_file()
+
+
+def test_scan_files_keep_every_start(finished):
+    with np.load(results(finished) / "scan" / "c4.npz") as scan:
+        assert scan["memberships"].shape[0] == BASE_CONFIG["scan"]["n_starts"]
+        assert scan["memberships"].shape[2] == 4
+        assert scan["centroids"].shape[:2] == (5, 4)
+        for key in ("objectives", "n_iter", "converged"):
+            assert scan[key].shape == (5,)
+        assert int(scan["best_index"]) == int(np.argmin(scan["objectives"]))
+
+
+def test_membership_rows_sum_to_one(finished):
+    table = pd.read_csv(results(finished) / "memberships.tsv", sep="\t")
+    clusters = [f"C{k}" for k in range(1, N_CLUSTERS + 1)]
+    assert list(table.columns) == ["gene", *clusters, "top_cluster", "top_membership", "stability"]
+    # Tables are written with 6 significant digits: each value is off by at most 5e-7.
+    np.testing.assert_allclose(table[clusters].sum(axis=1), 1.0, atol=N_CLUSTERS * 5e-7)
+    assert (table[clusters].to_numpy() >= 0).all()
+    np.testing.assert_allclose(table["top_membership"], table[clusters].max(axis=1), atol=1e-6)
+    assert (table["top_cluster"] == table[clusters].idxmax(axis=1)).all()
+    assert table["stability"].between(0, 1).all()
+
+
+def test_centroids_are_cluster_by_time_point(finished):
+    centroids = pd.read_csv(results(finished) / "centroids.tsv", sep="\t", index_col="cluster")
+    zscores = pd.read_csv(results(finished) / "prepared/zscores.tsv", sep="\t", index_col="gene")
+    assert list(centroids.index) == [f"C{k}" for k in range(1, N_CLUSTERS + 1)]
+    assert list(centroids.columns) == list(zscores.columns)
+
+
+def test_validity_table_covers_the_scan_and_marks_the_used_c(finished):
+    table = pd.read_csv(results(finished) / "validity.tsv", sep="\t")
+    assert table["n_clusters"].tolist() == [2, 3, 4, 5, 6]
+    assert table.loc[table["used"], "n_clusters"].tolist() == [N_CLUSTERS]
+    assert table["recommended"].sum() == 1
+
+
+def test_gmt_files_are_valid_and_within_the_background(finished):
+    """GMT: one set per line, tab-separated name, description, genes (Broad GSEA file-format
+    documentation, from memory); every gene must be in the background."""
+    genesets = results(finished) / "genesets"
+    background = (genesets / "background.txt").read_text().split()
+    memberships = pd.read_csv(results(finished) / "memberships.tsv", sep="\t", dtype={"gene": str})
+    for threshold in THRESHOLDS:
+        lines = (genesets / f"{RUN}_core{threshold:g}.gmt").read_text().splitlines()
+        assert lines, threshold
+        names = []
+        for line in lines:
+            fields = line.split("\t")
+            assert len(fields) >= 3 and all(fields), line[:80]
+            names.append(fields[0])
+            assert set(fields[2:]) <= set(background)
+            cluster = fields[0].split("_")[-2]
+            core = memberships.loc[memberships[cluster] >= threshold, "gene"]
+            assert sorted(fields[2:]) == sorted(core)
+        assert len(names) == len(set(names))
+
+
+def test_background_contains_every_clustered_gene(finished):
+    background = (results(finished) / "genesets" / "background.txt").read_text().split()
+    memberships = pd.read_csv(results(finished) / "memberships.tsv", sep="\t", dtype={"gene": str})
+    assert set(memberships["gene"]) <= set(background)
+    assert len(background) == len(set(background))
+
+
+def test_ranked_lists_are_sorted_two_column_tables(finished):
+    for k in range(1, N_CLUSTERS + 1):
+        ranked = pd.read_csv(results(finished) / "genesets" / f"{RUN}_C{k}_ranked.tsv", sep="\t")
+        assert list(ranked.columns) == ["gene", "membership"]
+        assert ranked["membership"].is_monotonic_decreasing
+
+
+def test_figures_exist_as_png_and_pdf(finished):
+    for name in ("profiles", "validity", "fuzzifier", "centroid_correlation"):
+        png = (results(finished) / "figures" / f"{name}.png").read_bytes()
+        pdf = (results(finished) / "figures" / f"{name}.pdf").read_bytes()
+        assert png.startswith(b"\x89PNG") and len(png) > 5000, name
+        assert pdf.startswith(b"%PDF") and len(pdf) > 2000, name
+
+
+def test_h5ad_holds_prepared_data_and_results(finished):
+    data = anndata.read_h5ad(results(finished) / "gloam.h5ad")
+    memberships = pd.read_csv(
+        results(finished) / "memberships.tsv", sep="\t", dtype={"gene": str}, index_col="gene"
+    )
+    assert list(data.var_names) == list(memberships.index)
+    assert data.n_obs == 10  # ten time points of the demo
+    np.testing.assert_allclose(
+        data.varm["gloam_memberships"], memberships[[f"C{k}" for k in range(1, 6)]], atol=1e-6
+    )
+    assert (data.var["gloam_top_cluster"].astype(str) == memberships["top_cluster"]).all()
+    np.testing.assert_allclose(data.var["gloam_stability"], memberships["stability"], atol=1e-6)
+    uns = data.uns["gloam"]
+    assert uns["centroids"].shape == (N_CLUSTERS, 10)
+    assert uns["n_clusters"] == N_CLUSTERS and uns["seed"] == BASE_CONFIG["seed"]
+    assert uns["m"] > 1
+    assert {"numpy", "anndata", "gloam"} <= set(uns["versions"])
+
+
+def test_planted_responses_are_recovered(finished):
+    """Core genes with a planted response land in one cluster per response: adjusted Rand
+    index >= 0.9 against the truth (sklearn.metrics.adjusted_rand_score as reference)."""
+    truth = pd.read_csv(finished / "demo" / "truth.tsv", sep="\t", index_col="gene")
+    memberships = pd.read_csv(
+        results(finished) / "memberships.tsv", sep="\t", dtype={"gene": str}, index_col="gene"
+    )
+    response = truth.loc[memberships.index, "response"]
+    planted = response.isin(PLANTED_RESPONSES)
+    for threshold in THRESHOLDS:
+        core = planted & (memberships["top_membership"] >= threshold)
+        assert core.sum() >= 0.8 * planted.sum(), threshold
+        score = adjusted_rand_score(response[core], memberships.loc[core, "top_cluster"])
+        assert score >= 0.9, (threshold, score)
+
+
+def test_clusters_are_numbered_by_peak_time(finished):
+    centroids = pd.read_csv(results(finished) / "centroids.tsv", sep="\t", index_col="cluster")
+    columns = anndata.read_h5ad(results(finished) / "prepared/prepared.h5ad").obs
+    times = columns.loc[centroids.columns, "time"].to_numpy(dtype=float)
+    peaks = times[np.argmax(centroids.to_numpy(), axis=1)]
+    assert np.all(np.diff(peaks) >= 0), peaks
+
+
+def test_summary_has_one_row_per_run(finished):
+    summary = pd.read_csv(finished / "results" / "summary.tsv", sep="\t")
+    assert summary["run"].tolist() == [RUN]
+    row = summary.iloc[0]
+    memberships = pd.read_csv(results(finished) / "memberships.tsv", sep="\t")
+    assert row["n_genes_clustered"] == len(memberships)
+    assert row["n_clusters"] == N_CLUSTERS
+    np.testing.assert_allclose(row["mean_stability"], memberships["stability"].mean(), rtol=1e-5)
+    for threshold in THRESHOLDS:
+        clusters = memberships[[f"C{k}" for k in range(1, 6)]]
+        assert row[f"core_genes_{threshold:g}"] == int((clusters >= threshold).any(axis=1).sum())
+
+
+def test_report_builds(finished):
+    snakemake(finished, "--report", "report.html")
+    html = (finished / "report.html").read_text(encoding="utf-8", errors="replace")
+    assert len(html) > 100_000
+    assert "profiles.png" in html
+
+
+def test_nothing_left_to_do_after_a_run(finished):
+    assert planned_rules(finished) == {}
+
+
+# ------------------------------------------------------------------ reruns
+
+
+def test_changing_thresholds_reruns_only_export_and_figure_rules(finished, tmp_path):
+    copy = tmp_path / "copy"
+    shutil.copytree(finished, copy, symlinks=True)
+    config = yaml.safe_load((copy / "config.yaml").read_text())
+    config["genesets"]["thresholds"] = [0.6, 0.8]
+    (copy / "config.yaml").write_text(yaml.safe_dump(config))
+    planned = planned_rules(copy)
+    assert "export_genesets" in planned and "figure_profiles" in planned
+    assert set(planned) <= {"export_genesets", "figure_profiles", "summary", "all"}
+    snakemake(copy)
+    assert (copy / "results" / RUN / "genesets" / f"{RUN}_core0.8.gmt").is_file()
+    assert not (copy / "results" / RUN / "genesets" / f"{RUN}_core0.7.gmt").exists()
+
+
+def test_changing_the_number_of_starts_reruns_the_scan_not_the_preparation(finished, tmp_path):
+    copy = tmp_path / "copy"
+    shutil.copytree(finished, copy, symlinks=True)
+    config = yaml.safe_load((copy / "config.yaml").read_text())
+    config["scan"]["n_starts"] = 6
+    (copy / "config.yaml").write_text(yaml.safe_dump(config))
+    planned = planned_rules(copy)
+    assert planned.get("scan") == 5
+    assert "prepare" not in planned and "fuzzifier" not in planned and "demo_data" not in planned
+
+
+def test_interrupted_run_leaves_no_partial_outputs_and_rerun_completes(tmp_path):
+    """SIGKILL the whole Snakemake process group while scan jobs are running."""
+    config = {
+        **BASE_CONFIG,
+        # tol=0 makes every start run exactly max_iter iterations: scans take seconds.
+        "scan": {"min_clusters": 2, "max_clusters": 6, "n_starts": 40, "tol": 0, "max_iter": 400},
+    }
+    directory = write_workdir(tmp_path / "run", config)
+    process = subprocess.Popen(
+        snakemake_command(directory),
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.DEVNULL,
+        start_new_session=True,
+    )
+    scan_dir = directory / "results" / RUN / "scan"
+    logs = directory / "logs" / RUN
+    deadline = time.monotonic() + 180
+    try:
+        while time.monotonic() < deadline:
+            started = list(logs.glob("scan_c*.log")) if logs.is_dir() else []
+            if started and process.poll() is None:
+                time.sleep(1.0)  # let the scan jobs get into their iterations
+                break
+            assert process.poll() is None, "workflow ended before a scan started"
+            time.sleep(0.2)
+        else:
+            pytest.fail("no scan job started within 180 s")
+    finally:
+        with contextlib.suppress(ProcessLookupError):
+            os.killpg(process.pid, signal.SIGKILL)
+        process.wait()
+
+    # Whatever carries an output name is complete; half-written data only under hidden
+    # temporary names, which no rule declares.
+    finished = [path for path in scan_dir.glob("c*.npz")] if scan_dir.is_dir() else []
+    assert len(finished) < 5, "the kill came too late to interrupt anything"
+    for path in finished:
+        with np.load(path) as scan:
+            assert scan["memberships"].shape[0] == 40
+    for path in (directory / "results").rglob("*"):
+        if path.is_file() and not path.name.startswith("."):
+            assert ".partial" not in path.name
+
+    # A killed Snakemake leaves its lock (by design); removing it is the documented first step.
+    snakemake(directory, "--unlock")
+    result = snakemake(directory, check=False)
+    assert result.returncode == 0, result.stdout + result.stderr
+    assert (directory / "results" / RUN / "memberships.tsv").is_file()
+    assert planned_rules(directory) == {}
+
+
+# ------------------------------------------------------------------ config handling
+
+
+def test_lint_reports_nothing(tmp_path):
+    result = subprocess.run(
+        [sys.executable, "-m", "snakemake", "--lint", "--snakefile", str(SNAKEFILE)],
+        cwd=REPO,
+        capture_output=True,
+        text=True,
+        timeout=300,
+    )
+    assert result.returncode == 0, result.stdout + result.stderr
+    assert "Lints for" not in result.stdout + result.stderr
+
+
+@pytest.mark.parametrize(
+    ("change", "expected"),
+    [
+        ({"scann": {"n_starts": 3}}, "scann"),
+        ({"scan": {"n_starts": 0}}, "n_starts"),
+        ({"scan": {"min_clusters": 5, "max_clusters": 3}}, "min_clusters"),
+        ({"fuzzifier": {"m": 0.5}}, "0.5"),
+        ({"variants": {"bad": {"scan": {"init": "everywhere"}}}}, "bad"),
+    ],
+)
+def test_bad_config_fails_with_a_clear_message(tmp_path, change, expected):
+    config = {**BASE_CONFIG, **change}
+    directory = write_workdir(tmp_path / "run", config)
+    result = snakemake(directory, "--dry-run", check=False)
+    assert result.returncode != 0
+    message = result.stdout + result.stderr
+    assert expected in message
+    assert "Traceback" not in message
+
+
+def test_variants_make_one_run_per_dataset_and_variant(tmp_path):
+    config = {
+        **BASE_CONFIG,
+        "variants": {"loose": {"preparation": {"min_sd": 0.1}}, "m16": {"fuzzifier": {"m": 1.6}}},
+    }
+    directory = write_workdir(tmp_path / "run", config)
+    result = snakemake(directory, "--dry-run")
+    output = result.stdout + result.stderr
+    assert f"results/{RUN}.loose/scan/c2.npz" in output
+    assert f"results/{RUN}.m16/fuzzifier.json" in output
+    assert f"results/{RUN}/" not in output
+    assert planned_rules(directory)["scan"] == 2 * 5
+
+
+def test_separate_conditions_become_runs(tmp_path):
+    directory = write_workdir(
+        tmp_path / "run", {**BASE_CONFIG, "preparation": {"conditions": "separate"}}
+    )
+    demo = directory / "demo"
+    demo.mkdir()
+    sheet = pd.DataFrame(
+        {
+            "sample": [f"s{i}" for i in range(12)],
+            "time": [0, 1, 2] * 4,
+            "replicate": [1, 1, 1, 2, 2, 2] * 2,
+            "condition": ["cold"] * 6 + ["warm"] * 6,
+        }
+    )
+    sheet.to_csv(demo / "samples.tsv", sep="\t", index=False)
+    output = snakemake(directory, "--dry-run").stdout
+    assert f"results/{RUN}.cold/prepared/prepared.h5ad" in output
+    assert f"results/{RUN}.warm/prepared/prepared.h5ad" in output
