@@ -222,11 +222,11 @@ def simulate_demo(
     width = len(str(n_genes))
     genes = [f"AH{i:0{width}d}" for i in range(1, n_genes + 1)]
     names = [
-        f"cold_{_format_hours(t)}h_r{r}"
-        for t, r in zip(sample_time, sample_replicate, strict=True)
+        f"cold_{_format_hours(t)}h_r{r}" for t, r in zip(sample_time, sample_replicate, strict=True)
     ]
-    counts_table = pd.DataFrame(counts.astype(np.int64), index=pd.Index(genes, name="gene"),
-                                columns=names)
+    counts_table = pd.DataFrame(
+        counts.astype(np.int64), index=pd.Index(genes, name="gene"), columns=names
+    )
     samples = pd.DataFrame(
         {
             "sample": names,
