@@ -229,7 +229,7 @@ def _run_cluster(args: argparse.Namespace) -> int:
         "tol": args.tol,
         "max_iter": args.max_iter,
         "init": "kmeans++",
-        "precision": "float64",
+        "precision": "fast",
     }
     scans = [out / "scan" / f"c{c}.npz" for c in numbers]
     for c, path in zip(numbers, scans, strict=True):
