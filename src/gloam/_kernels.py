@@ -44,7 +44,7 @@ _EXP_LIMIT = 708.0
 _FLAGS = {"reassoc", "contract", "nsz"}
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", fastmath={"contract", "nsz"})
 def _ln_mantissa(mant, e):
     """ln(mant * 2^e) for mant in [1, 2) (exponent e as a float)."""
     big = mant > _SQRT2
@@ -63,7 +63,7 @@ def _ln_mantissa(mant, e):
     return e * _LN2_HI + (2.0 * s + 2.0 * s * z * poly + e * _LN2_LO)
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", fastmath={"contract", "nsz"})
 def _exp_reduced(t):
     """(exp(f), k) with exp(t) = exp(f) 2^k, t clamped to [-708, 708]."""
     t = min(max(t, -_EXP_LIMIT), _EXP_LIMIT)
@@ -85,7 +85,7 @@ def _exp_reduced(t):
     return poly, (np.int64(k) + 1023) << 52
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", fastmath={"contract", "nsz"})
 def _split(src_bits, exponents, mantissa_bits, size):
     """Exponent (as float) and mantissa bits (with exponent 0) of non-negative floats."""
     for i in range(size):
@@ -94,7 +94,7 @@ def _split(src_bits, exponents, mantissa_bits, size):
         mantissa_bits[i] = (b & _MANTISSA) | _ONE_BITS
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", fastmath={"contract", "nsz"})
 def _power_rows(values, values_bits, power, out, tmp, tmp_bits, size):
     """out[:size] = values[:size] ** power for values > 0 (per-row quantities)."""
     _split(values_bits, out, tmp_bits, size)
@@ -119,7 +119,7 @@ def _column_totals(weights, rows, n_clusters, n_features, acc):
         acc[k, n_features] += total
 
 
-@njit(cache=True, error_model="numpy", parallel=True)
+@njit(cache=True, error_model="numpy", fastmath={"contract", "nsz"}, parallel=True)
 def fcm_update(
     samples,
     features,
