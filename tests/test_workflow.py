@@ -422,3 +422,34 @@ def test_separate_conditions_become_runs(tmp_path):
     output = snakemake(directory, "--dry-run").stdout
     assert f"results/{RUN}.cold/prepared/prepared.h5ad" in output
     assert f"results/{RUN}.warm/prepared/prepared.h5ad" in output
+
+
+# ------------------------------------------------------------------ command line
+
+
+def test_gloam_cluster_matches_the_workflow(finished, tmp_path):
+    """`gloam cluster` on the workflow's prepared matrix, with the same settings and seed,
+    gives the workflow's memberships (the same stage functions, run in one process)."""
+    from gloam.cli import main
+
+    out = tmp_path / "cli"
+    argv = ["cluster", "--prepared", str(results(finished) / "prepared/prepared.h5ad")]
+    argv += ["--out-dir", str(out), "--clusters", "2-6", "--n-clusters", str(N_CLUSTERS)]
+    argv += ["--n-starts", "5", "--seed", str(BASE_CONFIG["seed"]), "--thresholds", "0.5,0.7"]
+    assert main(argv) == 0
+    ours = pd.read_csv(out / "memberships.tsv", sep="\t")
+    workflow = pd.read_csv(results(finished) / "memberships.tsv", sep="\t")
+    pd.testing.assert_frame_equal(ours, workflow)
+    assert (out / "genesets" / "gloam_core0.7.gmt").is_file()
+    assert (out / "figures" / "profiles.png").stat().st_size > 0
+
+
+def test_gloam_run_drives_snakemake(finished, capsys):
+    from gloam.cli import main
+
+    argv = ["run", "--snakefile", str(SNAKEFILE), "--configfile", str(finished / "config.yaml")]
+    assert main([*argv, "--cores", "1", "--", "--directory", str(finished), "--dry-run"]) == 0
+    with pytest.raises(SystemExit) as exit_info:
+        main(["run", "--snakefile", str(finished / "missing.smk")])
+    assert exit_info.value.code == 2
+    assert "not found" in capsys.readouterr().err
