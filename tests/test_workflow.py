@@ -390,6 +390,19 @@ def test_bad_config_fails_with_a_clear_message(tmp_path, change, expected):
     assert "Traceback" not in message
 
 
+def test_user_error_inside_a_rule_is_one_line_and_leaves_no_outputs(tmp_path):
+    config = {**BASE_CONFIG, "preparation": {"min_expression": 10**9}}
+    directory = write_workdir(tmp_path / "run", config)
+    result = snakemake(directory, check=False)
+    assert result.returncode != 0
+    assert "gloam: error:" in result.stdout + result.stderr
+    log = (directory / "logs" / RUN / "prepare.log").read_text()
+    assert "gloam: error:" in log and "Traceback" not in log
+    assert not (directory / "results" / RUN / "prepared").exists() or not any(
+        path for path in (directory / "results" / RUN / "prepared").iterdir()
+    )
+
+
 def test_variants_make_one_run_per_dataset_and_variant(tmp_path):
     config = {
         **BASE_CONFIG,
