@@ -256,8 +256,10 @@ def _table(c, xb, distance):
     return pd.DataFrame({"n_clusters": c, "xie_beni": xb, "min_centroid_distance": distance})
 
 
-def test_recommendation_takes_the_c_before_the_first_collapse():
-    # distance ratios: 0.8 (2->3), 0.2 (3->4), 0.05 (4->5), 0.01 (5->6): collapse at c = 5,
+def test_recommendation_takes_the_c_before_the_sharpest_fall():
+    # distance ratios: 0.8 (2->3), 0.2 (3->4), 0.05 (4->5), 0.01 (5->6). Candidates halve the
+    # distance from centroids still apart (previous >= 0.1 of the running maximum 10):
+    # 3->4 and 4->5; 5->6 starts from 0.08, already collapsed. Sharpest: 4->5, so c = 4,
     # although the Xie–Beni index is smaller at c = 2.
     table = _table([2, 3, 4, 5, 6], [0.01, 0.20, 0.25, 3.0, 50.0], [10, 8, 1.6, 0.08, 0.0008])
     assert recommend_n_clusters(table) == 4
@@ -265,7 +267,16 @@ def test_recommendation_takes_the_c_before_the_first_collapse():
     assert reasons["eligible"].tolist() == [True, True, True, False, False]
     assert reasons["chosen"].tolist() == [False, False, True, False, False]
     assert_allclose(reasons["distance_ratio"].to_numpy()[1:], [0.8, 0.2, 0.05, 0.01])
-    assert recommend_n_clusters(table, collapse_ratio=0.3) == 3
+    # With a stricter candidate ratio only 4->5 and the excluded 5->6 remain: still c = 4.
+    assert recommend_n_clusters(table, collapse_ratio=0.1) == 4
+
+
+def test_recommendation_prefers_a_later_sharper_fall_to_an_earlier_milder_one():
+    # An extra cluster can halve the distance early (2 -> 3 here, ratio 0.45) and the real
+    # collapse come later (5 -> 6, ratio 0.2): the sharper fall wins, c = 5.
+    table = _table([2, 3, 4, 5, 6, 7], [0.3, 0.5, 0.4, 0.45, 1.7, 1.3],
+                   [13.0, 5.9, 5.8, 5.0, 1.0, 1.1])
+    assert recommend_n_clusters(table) == 5
 
 
 def test_recommendation_without_collapse_takes_the_smallest_xie_beni_ties_to_smaller_c():

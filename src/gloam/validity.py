@@ -62,8 +62,11 @@ VALIDITY_COLUMNS = (
 )
 
 #: A step c -> c' whose minimum centroid distance falls below this share of its previous value
-#: (an order of magnitude) counts as a collapse; see :func:`recommend_n_clusters`.
-DEFAULT_COLLAPSE_RATIO = 0.1
+#: (at least halves) is a candidate collapse; see :func:`recommend_n_clusters`.
+DEFAULT_COLLAPSE_RATIO = 0.5
+#: A candidate step only counts when the distance before it is still at least this share of
+#: the largest distance seen at smaller c (its centroids had not already collapsed).
+UNCOLLAPSED_SHARE = 0.1
 
 
 def _as_memberships(U: np.ndarray) -> np.ndarray:
@@ -392,7 +395,7 @@ def recommendation_reasons(
     table : pandas.DataFrame
         Output of :func:`validity_table` (needs ``n_clusters``, ``xie_beni``,
         ``min_centroid_distance``).
-    collapse_ratio : float, default 0.1
+    collapse_ratio : float, default 0.5
         See :func:`recommend_n_clusters`.
 
     Returns
@@ -428,9 +431,14 @@ def recommendation_reasons(
     ratio[1:] = np.divide(
         distance[1:], previous, out=np.full(len(c) - 1, np.nan), where=previous > 0
     )
-    # NaN compares False, so a step from an already-zero distance is never the collapse.
-    collapsed = np.flatnonzero(ratio < collapse_ratio)
-    collapse = int(collapsed[0]) if collapsed.size else None
+    # The collapse is the sharpest fall among steps that (a) at least halve the distance and
+    # (b) start from centroids still apart (not already collapsed at a smaller c). NaN
+    # compares False, so a step from an already-zero distance is never the collapse.
+    running_max = np.maximum.accumulate(np.where(np.isfinite(distance), distance, 0.0))
+    started_apart = np.zeros(len(c), dtype=bool)
+    started_apart[1:] = previous >= UNCOLLAPSED_SHARE * running_max[:-1]
+    candidate = (ratio < collapse_ratio) & started_apart
+    collapse = int(np.argmin(np.where(candidate, ratio, np.inf))) if candidate.any() else None
 
     if collapse is not None:
         eligible = np.arange(len(c)) < collapse
@@ -464,7 +472,8 @@ def recommendation_reasons(
         elif i == collapse:
             reasons.append(
                 f"the minimum centroid distance fell to {ratio[i]:.3g} of its value at "
-                f"c = {c[i - 1]} (below {collapse_ratio:g}): two centroids now share one group"
+                f"c = {c[i - 1]}, the sharpest fall in the scan: two centroids now share one "
+                "group"
             )
         elif eligible[i]:
             reasons.append(
@@ -496,9 +505,14 @@ def recommend_n_clusters(
        the previous scanned c. While every new cluster captures a real group, the closest pair
        of centroids stays apart; once c exceeds the number of groups the data support, the new
        centroid lands on top of an existing group (or coincides with another centroid) and the
-       distance falls sharply. The *collapse* is the first step whose ratio is below
-       ``collapse_ratio`` (default 0.1, a fall by an order of magnitude: common practice for a
-       sharp drop, not a published constant).
+       distance falls sharply. Candidate steps are those whose ratio is below
+       ``collapse_ratio`` (default 0.5: the distance at least halves) and whose previous
+       distance is still at least :data:`UNCOLLAPSED_SHARE` (0.1) of the largest distance at
+       smaller c, so that steps among centroids that had already collapsed (tiny distances
+       whose ratios are noise) are never taken. The *collapse* is the candidate with the
+       smallest ratio (the sharpest fall; the first one on ties). Both numbers are gloam's
+       conventions (checked on scikit-learn blobs and on the demo data), not published
+       constants.
     2. If there is a collapse, recommend the scanned c just before it: the largest number of
        clusters whose centroids are all still well apart.
     3. If the distance never collapses in the scanned range, recommend the c with the smallest
@@ -515,9 +529,9 @@ def recommend_n_clusters(
     table : pandas.DataFrame
         Output of :func:`validity_table` (needs ``n_clusters``, ``xie_beni``,
         ``min_centroid_distance``).
-    collapse_ratio : float, default 0.1
+    collapse_ratio : float, default 0.5
         Ratio in (0, 1) below which a fall of the minimum centroid distance from one scanned c
-        to the next counts as a collapse.
+        to the next is a candidate collapse.
 
     Returns
     -------
