@@ -29,3 +29,13 @@ def test_result_gets_the_mode_a_new_file_gets_under_the_umask(tmp_path):
     mode = stat.S_IMODE((tmp_path / "genes.txt").stat().st_mode)
     assert mode == 0o644
     assert (tmp_path / "genes.txt").read_text() == "GENE1\n"
+
+
+def test_leftover_of_a_killed_writer_is_removed_by_the_next_write(tmp_path):
+    leftover = tmp_path / ".table.tsv.abc123.partial.tsv"
+    leftover.write_text("half")
+    unrelated = tmp_path / ".other.tsv.abc123.partial.tsv"
+    unrelated.write_text("someone else's")
+    with atomic_output(tmp_path / "table.tsv") as temporary:
+        temporary.write_text("whole")
+    assert sorted(p.name for p in tmp_path.iterdir()) == [unrelated.name, "table.tsv"]

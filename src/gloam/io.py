@@ -13,6 +13,7 @@ step (or Snakemake) could mistake for a finished one.
 from __future__ import annotations
 
 import contextlib
+import glob
 import csv
 import gzip
 import os
@@ -53,6 +54,9 @@ def atomic_output(path: str | os.PathLike[str]) -> Iterator[Path]:
     target = Path(path)
     target.parent.mkdir(parents=True, exist_ok=True)
     suffix = "".join(target.suffixes)
+    # Leftovers of a writer that was killed (SIGKILL skips the cleanup below) go first.
+    for stale in target.parent.glob(f".{glob.escape(target.name)}.*.partial{glob.escape(suffix)}"):
+        stale.unlink(missing_ok=True)
     handle, temporary_name = tempfile.mkstemp(
         prefix=f".{target.name}.", suffix=f".partial{suffix}", dir=target.parent
     )
