@@ -13,8 +13,8 @@ step (or Snakemake) could mistake for a finished one.
 from __future__ import annotations
 
 import contextlib
-import glob
 import csv
+import glob
 import gzip
 import os
 import tempfile
