@@ -1,19 +1,28 @@
 """Optional compiled kernel for the fuzzy c-means iteration (needs numba).
 
 One call does a whole membership update for every active start: squared
-distances in the expanded form ``||x||^2 - 2 x.v + ||v||^2`` (clipped at 0),
-the memberships, each row's share of the objective, the largest membership
-change, and the weighted sums ``sum_i u_ik^m [x_i, 1]`` the next centroids are
-made of.  Rows are processed in blocks that stay in cache, so nothing of size
-(n_samples, n_clusters) is written except the memberships themselves.
+distances in the expanded form ``||x||^2 - 2 x.v + ||v||^2`` (one BLAS product
+of augmented rows, clipped at 0), the memberships, each row's share of the
+objective, the largest membership change, and the weighted sums
+``sum_i u_ik^m [x_i, ||x_i||^2, 1]`` the next centroids are made of.  Rows are
+processed in blocks that stay in cache, so nothing of size (n_samples,
+n_clusters) is written except the memberships themselves, which are kept
+cluster-major like every block array.
 
-The one transcendental step per element, ``r^(-p) = exp(-p ln r)``, uses
-vectorisable polynomial ``ln`` and ``exp`` written here (the compiler has no
-vector maths library to call): ``ln`` by the ``atanh`` series on a mantissa in
-``[sqrt(1/2), sqrt(2))`` and ``exp`` by Cody-Waite reduction to ``|f| <= ln(2)/2``
-and a degree-11 Taylor polynomial.  Their errors (below 1e-14 relative)
-are far under the 1e-10 agreement with the float64 NumPy path that the tests ask
-for.
+The one transcendental step per element, ``r^(-p) = exp(-p ln r)``, is a
+branch-free scalar function of ``r`` written here, so the compiler turns the
+loop over a block into SIMD code (it has no vector maths library to call):
+``ln`` by the ``atanh`` series on a mantissa in ``[sqrt(1/2), sqrt(2))`` and
+``exp`` by Cody-Waite reduction to ``|f| <= ln(2)/2`` and a degree-11 Taylor
+polynomial.  Exponent and mantissa are read and written through bit casts
+(:func:`_bits`, :func:`_float`), and integer/float conversions use the
+``1.5 * 2^52`` rounding constant, so every step has a SIMD instruction.  Their
+errors (below 1e-14 relative) are far under the 1e-10 agreement with the
+float64 NumPy path that the tests ask for.
+
+Loops that only map or accumulate into per-row arrays are kept to a few arrays
+each, with the rows innermost, so they vectorise without reordering any sum:
+results do not depend on the SIMD width.
 
 References
 ----------
@@ -23,30 +32,61 @@ Prentice-Hall.
 
 from __future__ import annotations
 
-import math
-
 import numba
 import numpy as np
-from numba import njit, prange
+from llvmlite import ir
+from numba import njit, prange, types
+from numba.extending import intrinsic
 
-__all__ = ["fcm_update", "set_threads"]
+__all__ = ["fcm_run", "fcm_update", "set_threads"]
 
-_LN2_HI = 6.93147180369123816490e-01  # ln 2 with its low 32 bits zero: e * _LN2_HI is exact
+_LN2_HI = 6.93147180369123816490e-01  # ln 2 with its low 32 bits zero: k * _LN2_HI is exact
 _LN2_LO = 1.90821492927058770002e-10
 _LOG2E = 1.4426950408889634
 _SQRT2 = 1.4142135623730951
 _MANTISSA = 0x000FFFFFFFFFFFFF
 _ONE_BITS = 0x3FF0000000000000
+# x + 1.5 * 2^52 rounds x to an integer held in the low mantissa bits (|x| < 2^51).
+_ROUNDER = 6755399441055744.0
+_ROUNDER_BITS = 0x4338000000000000
+_EXPONENT_ONE = 1023 << 52
 # exp(-708) is still a normal float64; clamping there keeps the exponent bits valid.
 _EXP_LIMIT = 708.0
 
+# No "reassoc": the rounding-constant steps and the summation order must stay as written.
+_FLAGS = {"contract", "nsz"}
 
-_FLAGS = {"reassoc", "contract", "nsz"}
+
+@intrinsic
+def _bits(typingctx, value):
+    """The bits of a float64 as an int64 (a free register move)."""
+    signature = types.int64(types.float64)
+
+    def codegen(context, builder, signature, args):
+        return builder.bitcast(args[0], ir.IntType(64))
+
+    return signature, codegen
 
 
-@njit(cache=True, error_model="numpy", fastmath={"contract", "nsz"})
-def _ln_mantissa(mant, e):
-    """ln(mant * 2^e) for mant in [1, 2) (exponent e as a float)."""
+@intrinsic
+def _float(typingctx, value):
+    """The float64 whose bits are the given int64."""
+    signature = types.float64(types.int64)
+
+    def codegen(context, builder, signature, args):
+        return builder.bitcast(args[0], ir.DoubleType())
+
+    return signature, codegen
+
+
+@njit(cache=True, error_model="numpy", fastmath=_FLAGS, inline="always")
+def _ln(x):
+    """ln x for finite x > 0 (normal numbers)."""
+    b = _bits(x)
+    # Exponent as a float without an int -> float conversion: (bits >> 52) lands in the
+    # low mantissa bits of the rounding constant.
+    e = _float((b >> 52) | _ROUNDER_BITS) - (_ROUNDER + 1023.0)
+    mant = _float((b & _MANTISSA) | _ONE_BITS)
     big = mant > _SQRT2
     mant = mant * 0.5 if big else mant
     e = e + 1.0 if big else e
@@ -63,11 +103,12 @@ def _ln_mantissa(mant, e):
     return e * _LN2_HI + (2.0 * s + 2.0 * s * z * poly + e * _LN2_LO)
 
 
-@njit(cache=True, error_model="numpy", fastmath={"contract", "nsz"})
-def _exp_reduced(t):
-    """(exp(f), k) with exp(t) = exp(f) 2^k, t clamped to [-708, 708]."""
+@njit(cache=True, error_model="numpy", fastmath=_FLAGS, inline="always")
+def _exp(t):
+    """exp t, with t clamped to [-708, 708]."""
     t = min(max(t, -_EXP_LIMIT), _EXP_LIMIT)
-    k = math.floor(t * _LOG2E + 0.5)
+    shifted = t * _LOG2E + _ROUNDER  # round(t / ln 2) in the low bits
+    k = shifted - _ROUNDER
     f = (t - k * _LN2_HI) - k * _LN2_LO
     # Taylor series to f^11: the remainder is below 7e-15 for |f| <= ln(2) / 2.
     poly = 1.0 / 39916800.0
@@ -82,49 +123,103 @@ def _exp_reduced(t):
     poly = poly * f + 0.5
     poly = poly * f + 1.0
     poly = poly * f + 1.0
-    return poly, (np.int64(k) + 1023) << 52
-
-
-@njit(cache=True, error_model="numpy", fastmath={"contract", "nsz"})
-def _split(src_bits, exponents, mantissa_bits, size):
-    """Exponent (as float) and mantissa bits (with exponent 0) of non-negative floats."""
-    for i in range(size):
-        b = src_bits[i]
-        exponents[i] = float((b >> 52) - 1023)
-        mantissa_bits[i] = (b & _MANTISSA) | _ONE_BITS
-
-
-@njit(cache=True, error_model="numpy", fastmath={"contract", "nsz"})
-def _power_rows(values, values_bits, power, out, tmp, tmp_bits, size):
-    """out[:size] = values[:size] ** power for values > 0 (per-row quantities)."""
-    _split(values_bits, out, tmp_bits, size)
-    for i in range(size):
-        out[i] = power * _ln_mantissa(tmp[i], out[i])
-    for i in range(size):
-        poly, bits = _exp_reduced(out[i])
-        out[i] = poly
-        tmp_bits[i] = bits
-    for i in range(size):
-        out[i] *= tmp[i]
+    # 2^k from the integer in the low bits (the constant's own bits shift out).
+    return poly * _float((_bits(shifted) << 52) + _EXPONENT_ONE)
 
 
 @njit(cache=True, error_model="numpy", fastmath=_FLAGS)
-def _column_totals(weights, rows, n_clusters, n_features, acc):
-    """acc[k, d] += sum_i weights[k * rows + i]."""
+def _block_update(dist, nearest, floor, flagged, power, totals, aux, rows, n_clusters, m):
+    """Memberships of one cache block from its squared distances, cluster-major.
+
+    ``dist`` (n_clusters * rows) holds squared distances on entry and is kept;
+    on exit ``power`` holds the memberships, ``aux`` the ``u^m`` and ``totals``
+    (rows,) each row's share ``J_i`` of the objective.  ``nearest`` holds
+    ``min_j D_ij`` and ``floor`` the coincidence thresholds.  Returns the
+    block's objective.
+    """
+    p = 1.0 / (m - 1.0)
+    n_flagged = 0
+    for i in range(rows):
+        if nearest[i] <= floor[i]:
+            flagged[n_flagged] = i
+            n_flagged += 1
+    for f in range(n_flagged):
+        nearest[flagged[f]] = 1.0
+    # `floor` becomes 1 / min_j D_ij.
+    for i in range(rows):
+        floor[i] = 1.0 / nearest[i]
+        totals[i] = 0.0
+    # r = D / min_j D >= 1, so r^(-p) = exp(-p ln r) lies in (0, 1]: no overflow at any m.
     for k in range(n_clusters):
         base = k * rows
-        total = 0.0
         for i in range(rows):
-            total += weights[base + i]
-        acc[k, n_features] += total
+            value = _exp(-p * _ln(dist[base + i] * floor[i]))
+            power[base + i] = value
+            totals[i] += value
+    # J_i = min_j D_ij * S_i^(1 - m), one power per row (module docstring of fcm); `floor`
+    # becomes J_i / S_i, `totals` J_i and `nearest` 1 / S_i.
+    for i in range(rows):
+        share = nearest[i] * _exp((1.0 - m) * _ln(totals[i]))
+        inverse = 1.0 / totals[i]
+        floor[i] = share * inverse
+        totals[i] = share
+        nearest[i] = inverse
+    # u = r^(-p) / S and u^m = u J_i / D = r^(-p) (J_i / S_i) / D.
+    for k in range(n_clusters):
+        base = k * rows
+        for i in range(rows):
+            value = power[base + i]
+            power[base + i] = value * nearest[i]
+            aux[base + i] = value * floor[i] / dist[base + i]
+    return n_flagged
 
 
-@njit(cache=True, error_model="numpy", fastmath={"contract", "nsz"}, parallel=True)
+@njit(cache=True, error_model="numpy", fastmath=_FLAGS)
+def _coinciding_rows(dist, flagged, n_flagged, thresholds, power, aux, totals, rows, n_clusters, m):
+    """Rows on a centroid: membership 1 there, split evenly between coinciding centroids."""
+    for f in range(n_flagged):
+        i = flagged[f]
+        hits = 0
+        for k in range(n_clusters):
+            if dist[k * rows + i] <= thresholds[i]:
+                hits += 1
+        share = 1.0 / hits
+        powered = share**m
+        contribution = 0.0
+        for k in range(n_clusters):
+            e = k * rows + i
+            if dist[e] <= thresholds[i]:
+                power[e] = share
+                aux[e] = powered
+                contribution += powered * dist[e]
+            else:
+                power[e] = 0.0
+                aux[e] = 0.0
+        totals[i] = contribution
+
+
+@njit(cache=True, error_model="numpy", fastmath=_FLAGS)
+def _store(power, target, lo, change_rows, rows, n_clusters):
+    """Copy ``power`` (c * rows) into ``target[:, lo : lo + rows]``; the largest change."""
+    for i in range(rows):
+        change_rows[i] = 0.0
+    for k in range(n_clusters):
+        base = k * rows
+        column = target[k]
+        for i in range(rows):
+            new = power[base + i]
+            change_rows[i] = max(change_rows[i], abs(column[lo + i] - new))
+            column[lo + i] = new
+    largest = 0.0
+    for i in range(rows):
+        largest = max(largest, change_rows[i])
+    return largest
+
+
+@njit(cache=True, error_model="numpy", fastmath=_FLAGS, parallel=True)
 def fcm_update(
-    samples,
-    features,
-    squared_norms,
-    centroids,
+    augmented_rows,
+    augmented_centroids,
     memberships,
     active,
     m,
@@ -139,54 +234,41 @@ def fcm_update(
 
     Parameters
     ----------
-    samples : float64 (n_samples, n_features), the data.
-    features : float64 (n_features, n_samples), the same data feature-major.
-    squared_norms : float64 (n_samples,), ``||x_i||^2``.
-    centroids : float64 (n_starts, n_clusters, n_features).
-    memberships : float64 (n_starts, n_samples, n_clusters); the old memberships on
-        entry, the new ones (optimal for ``centroids``) on exit for active starts.
+    augmented_rows : float64 (n_samples, n_features + 2), ``[x_i, ||x_i||^2, 1]``.
+    augmented_centroids : float64 (n_starts, n_clusters, n_features + 2),
+        ``[-2 v_k, 1, ||v_k||^2]``, so one product with the rows gives squared distances.
+    memberships : float64 (n_starts, n_clusters, n_samples), cluster-major; the old
+        memberships on entry, the new ones (optimal for the centroids) on exit for
+        active starts.
     active : int64 (n_active,), the starts to update.
     m : fuzzifier.  coincidence_relative : see ``gloam.fcm._COINCIDENCE_RELATIVE``.
     chunk_rows, block_rows : rows per parallel work unit and per cache block.
-    acc : float64 (n_active * n_chunks, n_clusters, n_features + 1), overwritten with
-        each unit's ``sum_i u_ik^m [x_i, 1]`` over its rows (new memberships).
+    acc : float64 (n_active * n_chunks, n_clusters, n_features + 2), overwritten with
+        each unit's ``sum_i u_ik^m [x_i, ||x_i||^2, 1]`` over its rows (new memberships).
     row_objective, change : float64 (n_active * n_chunks,), overwritten with each
         unit's share of ``J_m`` and its largest absolute membership change.
     """
-    n_features, n_samples = features.shape
-    n_clusters = centroids.shape[1]
+    n_samples, width = augmented_rows.shape
+    n_clusters = augmented_centroids.shape[1]
     n_chunks = (n_samples + chunk_rows - 1) // chunk_rows
-    p = 1.0 / (m - 1.0)
     n_units = active.shape[0] * n_chunks
     for unit in prange(n_units):
         start = active[unit // n_chunks]
         chunk = unit % n_chunks
         size = n_clusters * block_rows
-        dist = np.empty(size)
-        work = np.empty(size)
-        logs = np.empty(size)
-        scale = np.empty(size)
-        dist_bits = dist.view(np.int64)
-        scale_bits = scale.view(np.int64)
+        dist_buffer = np.empty(size)
+        power = np.empty(size)
+        aux_buffer = np.empty(size)
         nearest = np.empty(block_rows)
-        nearest_log = np.empty(block_rows)
         floor = np.empty(block_rows)
+        thresholds = np.empty(block_rows)
         totals = np.empty(block_rows)
-        row_j = np.empty(block_rows)
-        row_tmp = np.empty(block_rows)
-        nearest_bits = nearest.view(np.int64)
-        totals_bits = totals.view(np.int64)
-        row_tmp_bits = row_tmp.view(np.int64)
         flagged = np.empty(block_rows, dtype=np.int64)
-        weights = -2.0 * centroids[start]
-        vnorms = np.empty(n_clusters)
+        partial = np.empty((n_clusters, width))
+        weights = augmented_centroids[start]
         largest = 0.0
         for k in range(n_clusters):
-            vn = 0.0
-            for j in range(n_features):
-                vn += centroids[start, k, j] * centroids[start, k, j]
-            vnorms[k] = vn
-            largest = max(largest, vn)
+            largest = max(largest, weights[k, width - 1])
         unit_acc = acc[unit]
         unit_acc[:, :] = 0.0
         objective_sum = 0.0
@@ -196,92 +278,144 @@ def fcm_update(
         for lo in range(chunk_lo, chunk_hi, block_rows):
             rows = min(block_rows, chunk_hi - lo)
             total = n_clusters * rows
-            # Squared distances, cluster-major dist[k * rows + i]; the product through BLAS.
-            products = np.dot(weights, np.ascontiguousarray(features[:, lo : lo + rows]))
+            block = augmented_rows[lo : lo + rows]
+            # Squared distances, cluster-major dist[k * rows + i], through BLAS.
+            dist = dist_buffer[:total].reshape((n_clusters, rows))
+            np.dot(weights, block.T, dist)
+            dist_flat = dist_buffer[:total]
             for i in range(rows):
                 nearest[i] = np.inf
-                floor[i] = coincidence_relative * (squared_norms[lo + i] + largest + 1.0)
+                thresholds[i] = coincidence_relative * (block[i, width - 2] + largest + 1.0)
+                floor[i] = thresholds[i]
             for k in range(n_clusters):
                 base = k * rows
-                vn = vnorms[k]
                 for i in range(rows):
-                    value = max(products[k, i] + (squared_norms[lo + i] + vn), 0.0)
-                    dist[base + i] = value
+                    value = max(dist_flat[base + i], 0.0)
+                    dist_flat[base + i] = value
                     nearest[i] = min(nearest[i], value)
-            n_flagged = 0
-            for i in range(rows):
-                if nearest[i] <= floor[i]:
-                    flagged[n_flagged] = i
-                    n_flagged += 1
-            for f in range(n_flagged):
-                nearest[flagged[f]] = 1.0
-            # ln r = ln D - ln min_j D >= 0, so r^(-p) = exp(-p ln r) lies in (0, 1].
-            _split(nearest_bits, nearest_log, row_tmp_bits, rows)
-            for i in range(rows):
-                nearest_log[i] = _ln_mantissa(row_tmp[i], nearest_log[i])
-            _split(dist_bits, logs, scale_bits, total)
-            for k in range(n_clusters):
-                base = k * rows
-                for i in range(rows):
-                    e = base + i
-                    log_ratio = _ln_mantissa(scale[e], logs[e]) - nearest_log[i]
-                    poly, bits = _exp_reduced(-p * log_ratio)
-                    work[e] = poly
-                    scale_bits[e] = bits
-            for i in range(rows):
-                totals[i] = 0.0
-            for k in range(n_clusters):
-                base = k * rows
-                for i in range(rows):
-                    e = base + i
-                    value = work[e] * scale[e]
-                    work[e] = value
-                    totals[i] += value
-            # J_i = min_j D_ij * S_i^(1 - m), one power per row (module docstring of fcm).
-            _power_rows(totals, totals_bits, 1.0 - m, row_j, row_tmp, row_tmp_bits, rows)
-            for i in range(rows):
-                row_j[i] *= nearest[i]
-                row_tmp[i] = 1.0 / totals[i]
-            # u = r^(-p) / S and u^m = u J_i / D (into `logs`).
-            for k in range(n_clusters):
-                base = k * rows
-                for i in range(rows):
-                    e = base + i
-                    u = work[e] * row_tmp[i]
-                    work[e] = u
-                    logs[e] = u * row_j[i] / dist[e]
-            for f in range(n_flagged):
-                i = flagged[f]
-                hits = 0
-                for k in range(n_clusters):
-                    if dist[k * rows + i] <= floor[i]:
-                        hits += 1
-                share = 1.0 / hits
-                powered = share**m
-                contribution = 0.0
-                for k in range(n_clusters):
-                    e = k * rows + i
-                    if dist[e] <= floor[i]:
-                        work[e] = share
-                        logs[e] = powered
-                        contribution += powered * dist[e]
-                    else:
-                        work[e] = 0.0
-                        logs[e] = 0.0
-                row_j[i] = contribution
-            for i in range(rows):
-                objective_sum += row_j[i]
-                row = memberships[start, lo + i]
-                for k in range(n_clusters):
-                    new = work[k * rows + i]
-                    largest_change = max(largest_change, abs(row[k] - new))
-                    row[k] = new
-            _column_totals(logs, rows, n_clusters, n_features, unit_acc)
-            unit_acc[:, :n_features] += np.dot(
-                logs[:total].reshape((n_clusters, rows)), samples[lo : lo + rows]
+            n_flagged = _block_update(
+                dist_flat, nearest, floor, flagged, power, totals, aux_buffer, rows, n_clusters, m
             )
+            _coinciding_rows(
+                dist_flat,
+                flagged,
+                n_flagged,
+                thresholds,
+                power,
+                aux_buffer,
+                totals,
+                rows,
+                n_clusters,
+                m,
+            )
+            for i in range(rows):
+                objective_sum += totals[i]
+            largest_change = max(
+                largest_change, _store(power, memberships[start], lo, floor, rows, n_clusters)
+            )
+            np.dot(aux_buffer[:total].reshape((n_clusters, rows)), block, partial)
+            unit_acc += partial
         row_objective[unit] = objective_sum
         change[unit] = largest_change
+
+
+@njit(cache=True, error_model="numpy", fastmath=_FLAGS)
+def fcm_run(
+    augmented_rows,
+    centroids,
+    memberships,
+    m,
+    tol,
+    max_iter,
+    coincidence_relative,
+    chunk_rows,
+    block_rows,
+    objectives,
+    n_iter,
+    converged,
+):
+    """Iterate every start from ``centroids`` until ``tol`` or ``max_iter``, in place.
+
+    The whole loop runs here so an iteration costs no interpreter time.  Each
+    start stops on its own once its largest membership change is below ``tol``.
+
+    Parameters
+    ----------
+    augmented_rows : float64 (n_samples, n_features + 2), see :func:`fcm_update`.
+    centroids : float64 (n_starts, n_clusters, n_features); the first centroids on
+        entry, on exit those the final memberships were computed from.
+    memberships : float64 (n_starts, n_clusters, n_samples), cluster-major; any
+        values on entry (they only enter the first membership change), the final
+        memberships on exit.
+    m, tol, max_iter : fuzzifier, stopping threshold, iteration limit.
+    coincidence_relative, chunk_rows, block_rows : see :func:`fcm_update`.
+    objectives, n_iter, converged : (n_starts,) float64, int64, bool; overwritten
+        with each start's ``J_m``, iterations done and whether it reached ``tol``.
+    """
+    n_starts, n_clusters, n_features = centroids.shape
+    n_samples, width = augmented_rows.shape
+    n_chunks = (n_samples + chunk_rows - 1) // chunk_rows
+    augmented = np.empty((n_starts, n_clusters, width))
+    acc = np.empty((n_starts * n_chunks, n_clusters, width))
+    unit_objective = np.empty(n_starts * n_chunks)
+    unit_change = np.empty(n_starts * n_chunks)
+    active = np.arange(n_starts)
+    n_active = n_starts
+    for start in range(n_starts):
+        converged[start] = False
+        n_iter[start] = 0
+    for iteration in range(1, max_iter + 1):
+        for a in range(n_active):
+            start = active[a]
+            for k in range(n_clusters):
+                norm = 0.0
+                for j in range(n_features):
+                    value = centroids[start, k, j]
+                    augmented[start, k, j] = -2.0 * value
+                    norm += value * value
+                augmented[start, k, n_features] = 1.0
+                augmented[start, k, n_features + 1] = norm
+        units = n_active * n_chunks
+        fcm_update(
+            augmented_rows,
+            augmented,
+            memberships,
+            active[:n_active],
+            m,
+            coincidence_relative,
+            chunk_rows,
+            block_rows,
+            acc[:units],
+            unit_objective[:units],
+            unit_change[:units],
+        )
+        still = 0
+        for a in range(n_active):
+            start = active[a]
+            total = 0.0
+            largest = 0.0
+            for chunk in range(a * n_chunks, (a + 1) * n_chunks):
+                total += unit_objective[chunk]
+                largest = max(largest, unit_change[chunk])
+            objectives[start] = total
+            n_iter[start] = iteration
+            if largest < tol:
+                converged[start] = True
+                continue
+            active[still] = start
+            still += 1
+            if iteration == max_iter:
+                continue
+            # Next centroids from sum_i u_ik^m [x_i, ||x_i||^2, 1] over the chunks.
+            sums = acc[a * n_chunks].copy()
+            for chunk in range(a * n_chunks + 1, (a + 1) * n_chunks):
+                sums += acc[chunk]
+            for k in range(n_clusters):
+                for j in range(n_features):
+                    centroids[start, k, j] = sums[k, j] / sums[k, n_features + 1]
+        n_active = still
+        if n_active == 0:
+            break
 
 
 def set_threads(n_threads: int) -> int:

@@ -29,13 +29,15 @@ Scaling by the row minimum also keeps ``r^(-p) <= 1``, so reduced precision
 done in row blocks small enough to stay in cache, spread over a thread pool
 (NumPy releases the GIL inside ufuncs).
 
-The default ``precision="fast"`` runs the same algebra in one compiled kernel
-per iteration (:mod:`gloam._kernels`, needs numba, the ``fast`` extra): row
-blocks of every start in parallel, BLAS for the two products inside each block,
-``r^(-p) = exp(-p (ln D - ln min_j D))`` with float64-accurate vectorised
-``ln``/``exp``, and the centroid sums accumulated as the memberships are made,
-so no (n_starts, n_samples, n_clusters) array is written but the memberships.
-Without numba, ``"fast"`` falls back to the float32 element-wise path.
+The default ``precision="fast"`` runs the same algebra, the whole iteration
+loop included, in compiled code (:mod:`gloam._kernels`, needs numba, the
+``fast`` extra): row blocks of every start in parallel, BLAS for the two
+products inside each block, ``r^(-p) = exp(-p ln r)`` with float64-accurate
+vectorised ``ln``/``exp``, and the centroid sums accumulated as the memberships
+are made, so no (n_starts, n_samples, n_clusters) array is written but the
+memberships, which stay cluster-major until the end.
+Without numba, ``"fast"`` falls back to the float64 element-wise path, so it
+keeps its accuracy everywhere.
 
 Rows that coincide with a centroid (zero distance, up to rounding of the BLAS
 form) get membership 1 there, split evenly between coinciding centroids, so no
@@ -65,10 +67,14 @@ from threadpoolctl import threadpool_limits
 
 from gloam.errors import ConvergenceWarning, GloamError
 
-try:  # the compiled kernel is optional (the ``fast`` extra installs numba)
-    from gloam import _kernels
-except ImportError:  # pragma: no cover - exercised only without numba
-    _kernels = None
+# The compiled kernel is optional (the ``fast`` extra installs numba).  The private switch
+# GLOAM_DISABLE_NUMBA=1 runs the NumPy fallback with numba installed, to test that path.
+_kernels = None
+if os.environ.get("GLOAM_DISABLE_NUMBA", "") != "1":
+    try:
+        from gloam import _kernels
+    except ImportError:  # pragma: no cover - exercised only without numba
+        _kernels = None
 
 __all__ = [
     "FuzzyPartition",
@@ -85,7 +91,8 @@ Precision = Literal["fast", "float64", "float32"]
 Init = Literal["random", "kmeans++"]
 
 _ELEMENTWISE_DTYPES: dict[str, type[np.floating]] = {
-    "fast": np.float32,  # used only when the compiled kernel is not available
+    # Used only when the compiled kernel is not available: "fast" keeps its float64 accuracy.
+    "fast": np.float64,
     "float64": np.float64,
     "float32": np.float32,
 }
@@ -512,12 +519,10 @@ def _memberships_for_centroids(
     ``dtype`` None means the compiled kernel.
     """
     if dtype is None:
-        memberships = np.zeros((centroids.shape[0], X.shape[0], centroids.shape[1]))
-        with _CompiledRunner(X, centroids.shape[0], centroids.shape[1], n_threads) as runner:
-            runner.update(
-                np.ascontiguousarray(centroids), memberships, np.arange(len(centroids)), m
-            )
-        return memberships
+        memberships = np.zeros((centroids.shape[0], centroids.shape[1], X.shape[0]))
+        # One iteration is the membership update alone: the centroids stay as given.
+        _compiled_run(X, np.array(centroids, dtype=np.float64), memberships, m, 0.0, 1, n_threads)
+        return np.ascontiguousarray(memberships.transpose(0, 2, 1))
     s, c, _ = centroids.shape
     n = X.shape[0]
     rows = _augmented_rows(X)
@@ -540,101 +545,92 @@ def _kernel_layout(n_samples: int, n_clusters: int, n_threads: int) -> tuple[int
     return chunk_rows, block_rows
 
 
-class _CompiledRunner:
-    """Holds the data layouts and buffers of :func:`gloam._kernels.fcm_update`.
+def _compiled_run(
+    X: np.ndarray,
+    centroids: np.ndarray,
+    memberships: np.ndarray,
+    m: float,
+    tol: float,
+    max_iter: int,
+    n_threads: int | None,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """:func:`gloam._kernels.fcm_run` with numba on ``n_threads`` threads and BLAS on one.
 
-    Inside the context numba uses ``n_threads`` threads and BLAS one thread
-    each, since the kernel already runs row blocks in parallel.
+    ``centroids`` (s, c, d) and cluster-major ``memberships`` (s, c, n) are
+    updated in place.  Returns objectives, iterations and convergence per start.
     """
+    threads = max(1, n_threads or _default_threads())
+    n_starts, n_clusters, n_samples = memberships.shape
+    chunk_rows, block_rows = _kernel_layout(n_samples, n_clusters, threads)
+    objectives = np.empty(n_starts)
+    n_iter = np.zeros(n_starts, dtype=np.int64)
+    converged = np.zeros(n_starts, dtype=bool)
+    previous = _kernels.set_threads(threads)
+    try:
+        # The kernel already runs row blocks in parallel: one BLAS thread each.
+        with threadpool_limits(1, user_api="blas"):
+            _kernels.fcm_run(
+                _augmented_rows(X),
+                centroids,
+                memberships,
+                m,
+                tol,
+                max_iter,
+                _COINCIDENCE_RELATIVE,
+                chunk_rows,
+                block_rows,
+                objectives,
+                n_iter,
+                converged,
+            )
+    finally:
+        _kernels.set_threads(previous)
+    return objectives, n_iter, converged
 
-    def __init__(
-        self, X: np.ndarray, n_starts: int, n_clusters: int, n_threads: int | None
-    ) -> None:
-        self.n_threads = max(1, n_threads or _default_threads())
-        self.samples = X
-        self.features = np.ascontiguousarray(X.T)
-        self.squared_norms = np.einsum("ij,ij->i", X, X)
-        n_samples, n_features = X.shape
-        self.chunk_rows, self.block_rows = _kernel_layout(n_samples, n_clusters, self.n_threads)
-        self.n_chunks = -(-n_samples // self.chunk_rows)
-        units = n_starts * self.n_chunks
-        self.acc = np.empty((units, n_clusters, n_features + 1))
-        self.unit_objective = np.empty(units)
-        self.unit_change = np.empty(units)
 
-    def __enter__(self) -> _CompiledRunner:
-        self.previous_threads = _kernels.set_threads(self.n_threads)
-        self.blas_limit = threadpool_limits(1, user_api="blas")
-        return self
+def _initial_centroids(X: np.ndarray, initial: np.ndarray, m: float) -> np.ndarray:
+    """Centroids (s, c, d) from cluster-major memberships (s, c, n), one start at a time.
 
-    def __exit__(self, *exc: object) -> None:
-        self.blas_limit.restore_original_limits()
-        _kernels.set_threads(self.previous_threads)
+    Only one start's ``u^m`` exists at a time, so the first centroids cost
+    (c, n) of memory, not another (s, c, n) array.
+    """
+    data_with_ones = np.hstack([X, np.ones((X.shape[0], 1))])
+    n_features = X.shape[1]
+    centroids = np.empty((initial.shape[0], initial.shape[1], n_features))
+    for start, memberships in enumerate(initial):
+        sums = np.power(memberships, m) @ data_with_ones
+        centroids[start] = sums[:, :n_features] / sums[:, n_features:]
+    return centroids
 
-    def update(
-        self, centroids: np.ndarray, memberships: np.ndarray, active: np.ndarray, m: float
-    ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """New memberships of the active starts, in place in ``memberships`` (s, n, c).
 
-        Returns each active start's objective, largest membership change and
-        weighted sums ``sum_i u_ik^m [x_i, 1]`` of shape (n_active, c, d + 1).
-        """
-        units = active.size * self.n_chunks
-        _kernels.fcm_update(
-            self.samples,
-            self.features,
-            self.squared_norms,
-            centroids,
-            memberships,
-            active.astype(np.int64),
-            m,
-            _COINCIDENCE_RELATIVE,
-            self.chunk_rows,
-            self.block_rows,
-            self.acc[:units],
-            self.unit_objective[:units],
-            self.unit_change[:units],
-        )
-        shape = (active.size, self.n_chunks)
-        return (
-            self.unit_objective[:units].reshape(shape).sum(axis=1),
-            self.unit_change[:units].reshape(shape).max(axis=1),
-            self.acc[:units].reshape(shape + self.acc.shape[1:]).sum(axis=1),
-        )
+def _cluster_major_copy(memberships: np.ndarray) -> np.ndarray:
+    """(s, n, c) -> new contiguous float64 (s, c, n), one start at a time."""
+    n_starts, n_samples, n_clusters = memberships.shape
+    copy = np.empty((n_starts, n_clusters, n_samples))
+    for start in range(n_starts):
+        copy[start] = memberships[start].T
+    return copy
 
 
 def _run_starts_compiled(
-    X: np.ndarray, initial: np.ndarray, m: float, tol: float, max_iter: int, n_threads: int
+    X: np.ndarray, memberships: np.ndarray, m: float, tol: float, max_iter: int, n_threads: int
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """:func:`_run_starts` through the compiled kernel (same iterates, same stopping rule)."""
-    n_starts, n_samples, n_clusters = initial.shape
-    n_features = X.shape[1]
-    memberships = np.array(initial, dtype=np.float64, order="C", copy=True)
-    data_with_ones = np.hstack([X, np.ones((n_samples, 1))])
-    sums = np.matmul(np.power(memberships, m).transpose(0, 2, 1), data_with_ones)
-    centroids = sums[:, :, :n_features] / sums[:, :, n_features:]
-    del sums
-    objectives = np.full(n_starts, np.inf)
-    n_iter = np.zeros(n_starts, dtype=np.int64)
-    converged = np.zeros(n_starts, dtype=bool)
-    active = np.arange(n_starts)
-    with _CompiledRunner(X, n_starts, n_clusters, n_threads) as runner:
-        for iteration in range(1, max_iter + 1):
-            start_objective, change, sums = runner.update(centroids, memberships, active, m)
-            objectives[active] = start_objective
-            n_iter[active] = iteration
-            finished = change < tol
-            converged[active[finished]] = True
-            if iteration == max_iter:
-                break
-            # The returned centroids are those the final memberships were computed from.
-            going_on = ~finished
-            active = active[going_on]
-            if active.size == 0:
-                break
-            kept = sums[going_on]
-            centroids[active] = kept[:, :, :n_features] / kept[:, :, n_features:]
-    return centroids, memberships, objectives, n_iter, converged
+    """:func:`_run_starts` through the compiled kernel (same iterates, same stopping rule).
+
+    ``memberships`` (s, c, n), cluster-major, holds the initial memberships and is
+    overwritten; the memberships returned are sample-major (s, n, c).
+    """
+    centroids = _initial_centroids(X, memberships, m)
+    objectives, n_iter, converged = _compiled_run(
+        X, centroids, memberships, m, tol, max_iter, n_threads
+    )
+    return (
+        centroids,
+        np.ascontiguousarray(memberships.transpose(0, 2, 1)),
+        objectives,
+        n_iter,
+        converged,
+    )
 
 
 def _run_starts(
@@ -753,7 +749,7 @@ def fuzzy_cmeans(
         ``"fast"``: one compiled kernel per iteration (needs numba, the
         ``fast`` extra) with float64-accurate vectorised ``ln``/``exp``;
         memberships agree with ``"float64"`` to about 1e-13.  Without numba
-        ``"fast"`` falls back to ``"float32"``.
+        ``"fast"`` falls back to ``"float64"``.
     n_threads : int, optional
         Threads for the membership update.  Default: ``GLOAM_NUM_THREADS`` or
         ``OMP_NUM_THREADS`` when set, else the CPUs this process may use.
@@ -792,9 +788,12 @@ def fuzzy_cmeans(
     else:
         initial = _check_initial_memberships(initial_memberships, n_starts, n_samples, n_clusters)
     if compiled:
+        # Rebinding `initial` lets an array made here go before the iterations start.
+        initial = _cluster_major_copy(initial)
         centroids, memberships, objectives, n_iter, converged = _run_starts_compiled(
             X, initial, m, float(tol), int(max_iter), threads
         )
+        del initial
     else:
         centroids, memberships, objectives, n_iter, converged = _run_starts(
             X, initial, m, float(tol), int(max_iter), dtype, threads
