@@ -6,8 +6,8 @@ of augmented rows, clipped at 0), the memberships, each row's share of the
 objective, the largest membership change, and the weighted sums
 ``sum_i u_ik^m [x_i, ||x_i||^2, 1]`` the next centroids are made of.  Rows are
 processed in blocks that stay in cache, so nothing of size (n_samples,
-n_clusters) is written except the memberships themselves, which are kept
-cluster-major like every block array.
+n_clusters) is written except the memberships themselves, which are kept in the
+kernel's block layout (:func:`to_blocks`): one contiguous stretch per block.
 
 The one transcendental step per element, ``r^(-p) = 2^(-p log2 r)``, is a
 branch-free scalar function of ``r`` written here, so the compiler turns the
@@ -40,7 +40,7 @@ from llvmlite import ir
 from numba import njit, prange, types
 from numba.extending import intrinsic
 
-__all__ = ["fcm_run", "fcm_update", "set_threads"]
+__all__ = ["fcm_run", "fcm_update", "from_blocks", "set_threads", "to_blocks"]
 
 _SQRT2 = 1.4142135623730951
 _MANTISSA = 0x000FFFFFFFFFFFFF
@@ -199,21 +199,60 @@ def _coinciding_rows(dist, flagged, n_flagged, thresholds, power, aux, totals, r
 
 
 @njit(cache=True, error_model="numpy", fastmath=_FLAGS)
-def _store(power, target, lo, change_rows, rows, n_clusters):
-    """Copy ``power`` (c * rows) into ``target[:, lo : lo + rows]``; the largest change."""
+def _store(power, target, change_rows, rows, n_clusters):
+    """Copy ``power`` into the block's stretch ``target`` (both c * rows); the largest change."""
     for i in range(rows):
         change_rows[i] = 0.0
     for k in range(n_clusters):
         base = k * rows
-        column = target[k]
         for i in range(rows):
             new = power[base + i]
-            change_rows[i] = max(change_rows[i], abs(column[lo + i] - new))
-            column[lo + i] = new
+            change_rows[i] = max(change_rows[i], abs(target[base + i] - new))
+            target[base + i] = new
     largest = 0.0
     for i in range(rows):
         largest = max(largest, change_rows[i])
     return largest
+
+
+@njit(cache=True, error_model="numpy", parallel=True)
+def to_blocks(sample_major, chunk_rows, block_rows, blocked):
+    """(s, n, c) memberships into the kernel's layout ``blocked`` (s, c * n).
+
+    Rows go in the blocks of :func:`fcm_update` (``chunk_rows`` per parallel
+    unit, ``block_rows`` per block); block ``[lo, lo + rows)`` is stored
+    cluster-major, (c, rows), at offset ``c * lo``, so each block's memberships
+    are one contiguous stretch of memory.
+    """
+    n_starts, n_samples, n_clusters = sample_major.shape
+    n_chunks = (n_samples + chunk_rows - 1) // chunk_rows
+    for unit in prange(n_starts * n_chunks):
+        start = unit // n_chunks
+        chunk_lo = (unit % n_chunks) * chunk_rows
+        chunk_hi = min(chunk_lo + chunk_rows, n_samples)
+        for lo in range(chunk_lo, chunk_hi, block_rows):
+            rows = min(block_rows, chunk_hi - lo)
+            offset = n_clusters * lo
+            for i in range(rows):
+                for k in range(n_clusters):
+                    blocked[start, offset + k * rows + i] = sample_major[start, lo + i, k]
+
+
+@njit(cache=True, error_model="numpy", parallel=True)
+def from_blocks(blocked, chunk_rows, block_rows, sample_major):
+    """The inverse of :func:`to_blocks`: ``blocked`` (s, c * n) into (s, n, c)."""
+    n_starts, n_samples, n_clusters = sample_major.shape
+    n_chunks = (n_samples + chunk_rows - 1) // chunk_rows
+    for unit in prange(n_starts * n_chunks):
+        start = unit // n_chunks
+        chunk_lo = (unit % n_chunks) * chunk_rows
+        chunk_hi = min(chunk_lo + chunk_rows, n_samples)
+        for lo in range(chunk_lo, chunk_hi, block_rows):
+            rows = min(block_rows, chunk_hi - lo)
+            offset = n_clusters * lo
+            for i in range(rows):
+                for k in range(n_clusters):
+                    sample_major[start, lo + i, k] = blocked[start, offset + k * rows + i]
 
 
 @njit(cache=True, error_model="numpy", fastmath=_FLAGS, parallel=True)
@@ -237,9 +276,9 @@ def fcm_update(
     augmented_rows : float64 (n_samples, n_features + 2), ``[x_i, ||x_i||^2, 1]``.
     augmented_centroids : float64 (n_starts, n_clusters, n_features + 2),
         ``[-2 v_k, 1, ||v_k||^2]``, so one product with the rows gives squared distances.
-    memberships : float64 (n_starts, n_clusters, n_samples), cluster-major; the old
-        memberships on entry, the new ones (optimal for the centroids) on exit for
-        active starts.
+    memberships : float64 (n_starts, n_clusters * n_samples), in the block layout of
+        :func:`to_blocks`; the old memberships on entry, the new ones (optimal for
+        the centroids) on exit for active starts.
     active : int64 (n_active,), the starts to update.
     m : fuzzifier.  coincidence_relative : see ``gloam.fcm._COINCIDENCE_RELATIVE``.
     chunk_rows, block_rows : rows per parallel work unit and per cache block.
@@ -311,7 +350,8 @@ def fcm_update(
             for i in range(rows):
                 objective_sum += totals[i]
             largest_change = max(
-                largest_change, _store(power, memberships[start], lo, floor, rows, n_clusters)
+                largest_change,
+                _store(power, memberships[start, n_clusters * lo :], floor, rows, n_clusters),
             )
             np.dot(aux_buffer[:total].reshape((n_clusters, rows)), block, partial)
             unit_acc += partial
@@ -344,9 +384,9 @@ def fcm_run(
     augmented_rows : float64 (n_samples, n_features + 2), see :func:`fcm_update`.
     centroids : float64 (n_starts, n_clusters, n_features); the first centroids on
         entry, on exit those the final memberships were computed from.
-    memberships : float64 (n_starts, n_clusters, n_samples), cluster-major; any
-        values on entry (they only enter the first membership change), the final
-        memberships on exit.
+    memberships : float64 (n_starts, n_clusters * n_samples), block layout of
+        :func:`to_blocks`; the initial memberships on entry (they only enter the first
+        membership change), the final memberships on exit.
     m, tol, max_iter : fuzzifier, stopping threshold, iteration limit.
     coincidence_relative, chunk_rows, block_rows : see :func:`fcm_update`.
     objectives, n_iter, converged : (n_starts,) float64, int64, bool; overwritten

@@ -519,10 +519,18 @@ def _memberships_for_centroids(
     ``dtype`` None means the compiled kernel.
     """
     if dtype is None:
-        memberships = np.zeros((centroids.shape[0], centroids.shape[1], X.shape[0]))
         # One iteration is the membership update alone: the centroids stay as given.
-        _compiled_run(X, np.array(centroids, dtype=np.float64), memberships, m, 0.0, 1, n_threads)
-        return np.ascontiguousarray(memberships.transpose(0, 2, 1))
+        s, c, _ = centroids.shape
+        memberships, *_ = _compiled_run(
+            X,
+            np.array(centroids, dtype=np.float64),
+            np.zeros((s, c * X.shape[0])),
+            m,
+            0.0,
+            1,
+            max(1, n_threads or _default_threads()),
+        )
+        return memberships
     s, c, _ = centroids.shape
     n = X.shape[0]
     rows = _augmented_rows(X)
@@ -545,92 +553,90 @@ def _kernel_layout(n_samples: int, n_clusters: int, n_threads: int) -> tuple[int
     return chunk_rows, block_rows
 
 
+class _KernelThreads:
+    """Context: numba on ``n_threads`` threads and BLAS on one (the kernel is the parallel part)."""
+
+    def __init__(self, n_threads: int) -> None:
+        self.n_threads = n_threads
+
+    def __enter__(self) -> _KernelThreads:
+        self.previous = _kernels.set_threads(self.n_threads)
+        self.blas_limit = threadpool_limits(1, user_api="blas")
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.blas_limit.restore_original_limits()
+        _kernels.set_threads(self.previous)
+
+
+def _kernel_blocks(memberships: np.ndarray, n_threads: int) -> np.ndarray:
+    """(s, n, c) memberships -> new (s, c * n) array in the kernel's block layout."""
+    n_starts, n_samples, n_clusters = memberships.shape
+    chunk_rows, block_rows = _kernel_layout(n_samples, n_clusters, n_threads)
+    blocked = np.empty((n_starts, n_clusters * n_samples))
+    with _KernelThreads(n_threads):
+        _kernels.to_blocks(
+            np.ascontiguousarray(memberships, dtype=np.float64), chunk_rows, block_rows, blocked
+        )
+    return blocked
+
+
 def _compiled_run(
     X: np.ndarray,
     centroids: np.ndarray,
-    memberships: np.ndarray,
+    blocked: np.ndarray,
     m: float,
     tol: float,
     max_iter: int,
-    n_threads: int | None,
-) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """:func:`gloam._kernels.fcm_run` with numba on ``n_threads`` threads and BLAS on one.
+    n_threads: int,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """:func:`_run_starts` through :func:`gloam._kernels.fcm_run` (same iterates and stopping).
 
-    ``centroids`` (s, c, d) and cluster-major ``memberships`` (s, c, n) are
-    updated in place.  Returns objectives, iterations and convergence per start.
+    ``centroids`` (s, c, d) holds the first centroids and is updated in place to
+    those the final memberships were computed from; ``blocked`` (s, c * n), from
+    :func:`_kernel_blocks` with the same ``n_threads``, holds the initial
+    memberships and is overwritten.  Returns the final memberships (s, n, c),
+    objectives, iterations and convergence per start.
     """
-    threads = max(1, n_threads or _default_threads())
-    n_starts, n_clusters, n_samples = memberships.shape
-    chunk_rows, block_rows = _kernel_layout(n_samples, n_clusters, threads)
+    n_starts, n_clusters, _ = centroids.shape
+    n_samples = X.shape[0]
+    chunk_rows, block_rows = _kernel_layout(n_samples, n_clusters, n_threads)
     objectives = np.empty(n_starts)
     n_iter = np.zeros(n_starts, dtype=np.int64)
     converged = np.zeros(n_starts, dtype=bool)
-    previous = _kernels.set_threads(threads)
-    try:
-        # The kernel already runs row blocks in parallel: one BLAS thread each.
-        with threadpool_limits(1, user_api="blas"):
-            _kernels.fcm_run(
-                _augmented_rows(X),
-                centroids,
-                memberships,
-                m,
-                tol,
-                max_iter,
-                _COINCIDENCE_RELATIVE,
-                chunk_rows,
-                block_rows,
-                objectives,
-                n_iter,
-                converged,
-            )
-    finally:
-        _kernels.set_threads(previous)
-    return objectives, n_iter, converged
+    memberships = np.empty((n_starts, n_samples, n_clusters))
+    with _KernelThreads(n_threads):
+        _kernels.fcm_run(
+            _augmented_rows(X),
+            centroids,
+            blocked,
+            m,
+            tol,
+            max_iter,
+            _COINCIDENCE_RELATIVE,
+            chunk_rows,
+            block_rows,
+            objectives,
+            n_iter,
+            converged,
+        )
+        _kernels.from_blocks(blocked, chunk_rows, block_rows, memberships)
+    return memberships, objectives, n_iter, converged
 
 
 def _initial_centroids(X: np.ndarray, initial: np.ndarray, m: float) -> np.ndarray:
-    """Centroids (s, c, d) from cluster-major memberships (s, c, n), one start at a time.
+    """Centroids (s, c, d) from memberships (s, n, c), one start at a time.
 
     Only one start's ``u^m`` exists at a time, so the first centroids cost
-    (c, n) of memory, not another (s, c, n) array.
+    (n, c) of memory, not another (s, n, c) array.
     """
     data_with_ones = np.hstack([X, np.ones((X.shape[0], 1))])
     n_features = X.shape[1]
-    centroids = np.empty((initial.shape[0], initial.shape[1], n_features))
+    centroids = np.empty((initial.shape[0], initial.shape[2], n_features))
     for start, memberships in enumerate(initial):
-        sums = np.power(memberships, m) @ data_with_ones
+        sums = np.power(memberships, m).T @ data_with_ones
         centroids[start] = sums[:, :n_features] / sums[:, n_features:]
     return centroids
-
-
-def _cluster_major_copy(memberships: np.ndarray) -> np.ndarray:
-    """(s, n, c) -> new contiguous float64 (s, c, n), one start at a time."""
-    n_starts, n_samples, n_clusters = memberships.shape
-    copy = np.empty((n_starts, n_clusters, n_samples))
-    for start in range(n_starts):
-        copy[start] = memberships[start].T
-    return copy
-
-
-def _run_starts_compiled(
-    X: np.ndarray, memberships: np.ndarray, m: float, tol: float, max_iter: int, n_threads: int
-) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """:func:`_run_starts` through the compiled kernel (same iterates, same stopping rule).
-
-    ``memberships`` (s, c, n), cluster-major, holds the initial memberships and is
-    overwritten; the memberships returned are sample-major (s, n, c).
-    """
-    centroids = _initial_centroids(X, memberships, m)
-    objectives, n_iter, converged = _compiled_run(
-        X, centroids, memberships, m, tol, max_iter, n_threads
-    )
-    return (
-        centroids,
-        np.ascontiguousarray(memberships.transpose(0, 2, 1)),
-        objectives,
-        n_iter,
-        converged,
-    )
 
 
 def _run_starts(
@@ -788,10 +794,11 @@ def fuzzy_cmeans(
     else:
         initial = _check_initial_memberships(initial_memberships, n_starts, n_samples, n_clusters)
     if compiled:
+        centroids = _initial_centroids(X, initial, m)
         # Rebinding `initial` lets an array made here go before the iterations start.
-        initial = _cluster_major_copy(initial)
-        centroids, memberships, objectives, n_iter, converged = _run_starts_compiled(
-            X, initial, m, float(tol), int(max_iter), threads
+        initial = _kernel_blocks(initial, threads)
+        memberships, objectives, n_iter, converged = _compiled_run(
+            X, centroids, initial, m, float(tol), int(max_iter), threads
         )
         del initial
     else:
