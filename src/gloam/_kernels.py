@@ -106,8 +106,11 @@ def _log2(x):
 
 @njit(cache=True, error_model="numpy", fastmath=_FLAGS, inline="always")
 def _exp2(t):
-    """2^t, with t clamped to [-1020, 1020] (results stay normal); relative error < 1e-15."""
-    t = min(max(t, -_EXP2_LIMIT), _EXP2_LIMIT)
+    """2^t for t <= 1020, t clamped at -1020 (results stay normal); relative error < 1e-15.
+
+    Callers only pass ``t <= 0`` (up to rounding), hence no upper clamp.
+    """
+    t = max(t, -_EXP2_LIMIT)
     shifted = t + _ROUNDER  # round(t) in the low bits
     k = shifted - _ROUNDER
     f = t - k  # exact, |f| <= 1/2
@@ -128,14 +131,31 @@ def _exp2(t):
 
 
 @njit(cache=True, error_model="numpy", fastmath=_FLAGS)
-def _block_update(dist, nearest, floor, flagged, power, totals, aux, rows, n_clusters, m):
+def _block_update(
+    dist,
+    nearest,
+    floor,
+    flagged,
+    power,
+    totals,
+    aux,
+    target,
+    saved,
+    change_rows,
+    rows,
+    n_clusters,
+    m,
+):
     """Memberships of one cache block from its squared distances, cluster-major.
 
     ``dist`` (n_clusters * rows) holds squared distances on entry and is kept;
-    on exit ``power`` holds the memberships, ``aux`` the ``u^m`` and ``totals``
-    (rows,) each row's share ``J_i`` of the objective.  ``nearest`` holds
-    ``min_j D_ij`` and ``floor`` the coincidence thresholds.  Returns the
-    block's objective.
+    ``nearest`` (rows,) holds ``min_j D_ij`` and ``floor`` the coincidence
+    thresholds.  On exit ``target`` (the block's stretch of the memberships)
+    holds the new memberships, ``aux`` the ``u^m``, ``totals`` each row's share
+    ``J_i`` of the objective and ``change_rows`` each row's largest membership
+    change; ``saved`` keeps the old memberships of the rows that sit on a
+    centroid (returned count, indices in ``flagged``), which
+    :func:`_coinciding_rows` then finishes.  ``power`` is scratch.
     """
     minus_p = -1.0 / (m - 1.0)
     n_flagged = 0
@@ -144,11 +164,15 @@ def _block_update(dist, nearest, floor, flagged, power, totals, aux, rows, n_clu
             flagged[n_flagged] = i
             n_flagged += 1
     for f in range(n_flagged):
-        nearest[flagged[f]] = 1.0
+        i = flagged[f]
+        nearest[i] = 1.0
+        for k in range(n_clusters):
+            saved[f * n_clusters + k] = target[k * rows + i]
     # `floor` becomes 1 / min_j D_ij.
     for i in range(rows):
         floor[i] = 1.0 / nearest[i]
         totals[i] = 0.0
+        change_rows[i] = 0.0
     # r = D / min_j D >= 1, so r^(-p) = 2^(-p log2 r) lies in (0, 1]: no overflow at any m.
     for k in range(n_clusters):
         base = k * rows
@@ -164,18 +188,36 @@ def _block_update(dist, nearest, floor, flagged, power, totals, aux, rows, n_clu
         floor[i] = share * inverse
         totals[i] = share
         nearest[i] = inverse
-    # u = r^(-p) / S and u^m = u J_i / D = r^(-p) (J_i / S_i) / D.
+    # u = r^(-p) / S, straight into the memberships.
     for k in range(n_clusters):
         base = k * rows
         for i in range(rows):
-            value = power[base + i]
-            power[base + i] = value * nearest[i]
-            aux[base + i] = value * floor[i] / dist[base + i]
+            new = power[base + i] * nearest[i]
+            change_rows[i] = max(change_rows[i], abs(target[base + i] - new))
+            target[base + i] = new
+    # u^m = u J_i / D = r^(-p) (J_i / S_i) / D.
+    for k in range(n_clusters):
+        base = k * rows
+        for i in range(rows):
+            aux[base + i] = power[base + i] * floor[i] / dist[base + i]
     return n_flagged
 
 
 @njit(cache=True, error_model="numpy", fastmath=_FLAGS)
-def _coinciding_rows(dist, flagged, n_flagged, thresholds, power, aux, totals, rows, n_clusters, m):
+def _coinciding_rows(
+    dist,
+    flagged,
+    n_flagged,
+    thresholds,
+    target,
+    aux,
+    totals,
+    saved,
+    change_rows,
+    rows,
+    n_clusters,
+    m,
+):
     """Rows on a centroid: membership 1 there, split evenly between coinciding centroids."""
     for f in range(n_flagged):
         i = flagged[f]
@@ -186,33 +228,16 @@ def _coinciding_rows(dist, flagged, n_flagged, thresholds, power, aux, totals, r
         share = 1.0 / hits
         powered = share**m
         contribution = 0.0
+        largest = 0.0
         for k in range(n_clusters):
             e = k * rows + i
-            if dist[e] <= thresholds[i]:
-                power[e] = share
-                aux[e] = powered
-                contribution += powered * dist[e]
-            else:
-                power[e] = 0.0
-                aux[e] = 0.0
+            new = share if dist[e] <= thresholds[i] else 0.0
+            target[e] = new
+            aux[e] = powered if new > 0.0 else 0.0
+            contribution += aux[e] * dist[e]
+            largest = max(largest, abs(saved[f * n_clusters + k] - new))
         totals[i] = contribution
-
-
-@njit(cache=True, error_model="numpy", fastmath=_FLAGS)
-def _store(power, target, change_rows, rows, n_clusters):
-    """Copy ``power`` into the block's stretch ``target`` (both c * rows); the largest change."""
-    for i in range(rows):
-        change_rows[i] = 0.0
-    for k in range(n_clusters):
-        base = k * rows
-        for i in range(rows):
-            new = power[base + i]
-            change_rows[i] = max(change_rows[i], abs(target[base + i] - new))
-            target[base + i] = new
-    largest = 0.0
-    for i in range(rows):
-        largest = max(largest, change_rows[i])
-    return largest
+        change_rows[i] = largest
 
 
 @njit(cache=True, error_model="numpy", parallel=True)
@@ -303,6 +328,8 @@ def fcm_update(
         thresholds = np.empty(block_rows)
         totals = np.empty(block_rows)
         flagged = np.empty(block_rows, dtype=np.int64)
+        saved = np.empty(size)
+        change_rows = np.empty(block_rows)
         partial = np.empty((n_clusters, width))
         weights = augmented_centroids[start]
         largest = 0.0
@@ -332,27 +359,39 @@ def fcm_update(
                     value = max(dist_flat[base + i], 0.0)
                     dist_flat[base + i] = value
                     nearest[i] = min(nearest[i], value)
+            target = memberships[start, n_clusters * lo : n_clusters * lo + total]
             n_flagged = _block_update(
-                dist_flat, nearest, floor, flagged, power, totals, aux_buffer, rows, n_clusters, m
+                dist_flat,
+                nearest,
+                floor,
+                flagged,
+                power,
+                totals,
+                aux_buffer,
+                target,
+                saved,
+                change_rows,
+                rows,
+                n_clusters,
+                m,
             )
             _coinciding_rows(
                 dist_flat,
                 flagged,
                 n_flagged,
                 thresholds,
-                power,
+                target,
                 aux_buffer,
                 totals,
+                saved,
+                change_rows,
                 rows,
                 n_clusters,
                 m,
             )
             for i in range(rows):
                 objective_sum += totals[i]
-            largest_change = max(
-                largest_change,
-                _store(power, memberships[start, n_clusters * lo :], floor, rows, n_clusters),
-            )
+                largest_change = max(largest_change, change_rows[i])
             np.dot(aux_buffer[:total].reshape((n_clusters, rows)), block, partial)
             unit_acc += partial
         row_objective[unit] = objective_sum
