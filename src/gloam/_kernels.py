@@ -40,7 +40,7 @@ from llvmlite import ir
 from numba import njit, prange, types
 from numba.extending import intrinsic
 
-__all__ = ["fcm_run", "fcm_update", "from_blocks", "set_threads", "to_blocks"]
+__all__ = ["fcm_run", "fcm_update", "from_blocks", "powers", "set_threads", "to_blocks"]
 
 _SQRT2 = 1.4142135623730951
 _MANTISSA = 0x000FFFFFFFFFFFFF
@@ -51,6 +51,7 @@ _ROUNDER_BITS = 0x4338000000000000
 _EXPONENT_ONE = 1023 << 52
 # 2^-1020 is still a normal float64; clamping there keeps the exponent bits valid.
 _EXP2_LIMIT = 1020.0
+_SMALLEST_NORMAL = 2.2250738585072014e-308
 
 # No "reassoc": the rounding-constant steps and the summation order must stay as written.
 _FLAGS = {"contract", "nsz"}
@@ -238,6 +239,14 @@ def _coinciding_rows(
             largest = max(largest, abs(saved[f * n_clusters + k] - new))
         totals[i] = contribution
         change_rows[i] = largest
+
+
+@njit(cache=True, error_model="numpy", fastmath=_FLAGS, parallel=True)
+def powers(values, m, out):
+    """``out = values ** m`` for memberships in [0, 1] (1-D); below 2^-1022 counts as 0."""
+    for i in prange(values.shape[0]):
+        value = values[i]
+        out[i] = _exp2(m * _log2(value)) if value >= _SMALLEST_NORMAL else 0.0
 
 
 @njit(cache=True, error_model="numpy", parallel=True)

@@ -63,7 +63,7 @@ from dataclasses import dataclass
 from typing import Literal
 
 import numpy as np
-from threadpoolctl import threadpool_limits
+from threadpoolctl import ThreadpoolController
 
 from gloam.errors import ConvergenceWarning, GloamError
 
@@ -521,15 +521,17 @@ def _memberships_for_centroids(
     if dtype is None:
         # One iteration is the membership update alone: the centroids stay as given.
         s, c, _ = centroids.shape
-        memberships, *_ = _compiled_run(
-            X,
-            np.array(centroids, dtype=np.float64),
-            np.zeros((s, c * X.shape[0])),
-            m,
-            0.0,
-            1,
-            max(1, n_threads or _default_threads()),
-        )
+        threads = max(1, n_threads or _default_threads())
+        with _KernelThreads(threads):
+            memberships, *_ = _compiled_run(
+                X,
+                np.array(centroids, dtype=np.float64),
+                np.zeros((s, c * X.shape[0])),
+                m,
+                0.0,
+                1,
+                threads,
+            )
         return memberships
     s, c, _ = centroids.shape
     n = X.shape[0]
@@ -554,14 +556,24 @@ def _kernel_layout(n_samples: int, n_clusters: int, n_threads: int) -> tuple[int
 
 
 class _KernelThreads:
-    """Context: numba on ``n_threads`` threads and BLAS on one (the kernel is the parallel part)."""
+    """Context: numba on ``n_threads`` threads and BLAS on one (the kernel is the parallel part).
+
+    The BLAS libraries are found once per process (a search costs about 0.5 ms),
+    after importing the SciPy BLAS that numba's ``np.dot`` calls.
+    """
+
+    controller: ThreadpoolController | None = None
 
     def __init__(self, n_threads: int) -> None:
         self.n_threads = n_threads
 
     def __enter__(self) -> _KernelThreads:
+        if _KernelThreads.controller is None:
+            import scipy.linalg.cython_blas  # noqa: F401  (loads the BLAS numba binds to)
+
+            _KernelThreads.controller = ThreadpoolController()
         self.previous = _kernels.set_threads(self.n_threads)
-        self.blas_limit = threadpool_limits(1, user_api="blas")
+        self.blas_limit = _KernelThreads.controller.limit(limits=1, user_api="blas")
         return self
 
     def __exit__(self, *exc: object) -> None:
@@ -570,14 +582,16 @@ class _KernelThreads:
 
 
 def _kernel_blocks(memberships: np.ndarray, n_threads: int) -> np.ndarray:
-    """(s, n, c) memberships -> new (s, c * n) array in the kernel's block layout."""
+    """(s, n, c) memberships -> new (s, c * n) array in the kernel's block layout.
+
+    Call inside :class:`_KernelThreads`.
+    """
     n_starts, n_samples, n_clusters = memberships.shape
     chunk_rows, block_rows = _kernel_layout(n_samples, n_clusters, n_threads)
     blocked = np.empty((n_starts, n_clusters * n_samples))
-    with _KernelThreads(n_threads):
-        _kernels.to_blocks(
-            np.ascontiguousarray(memberships, dtype=np.float64), chunk_rows, block_rows, blocked
-        )
+    _kernels.to_blocks(
+        np.ascontiguousarray(memberships, dtype=np.float64), chunk_rows, block_rows, blocked
+    )
     return blocked
 
 
@@ -596,7 +610,8 @@ def _compiled_run(
     those the final memberships were computed from; ``blocked`` (s, c * n), from
     :func:`_kernel_blocks` with the same ``n_threads``, holds the initial
     memberships and is overwritten.  Returns the final memberships (s, n, c),
-    objectives, iterations and convergence per start.
+    objectives, iterations and convergence per start.  Call inside
+    :class:`_KernelThreads`.
     """
     n_starts, n_clusters, _ = centroids.shape
     n_samples = X.shape[0]
@@ -605,36 +620,41 @@ def _compiled_run(
     n_iter = np.zeros(n_starts, dtype=np.int64)
     converged = np.zeros(n_starts, dtype=bool)
     memberships = np.empty((n_starts, n_samples, n_clusters))
-    with _KernelThreads(n_threads):
-        _kernels.fcm_run(
-            _augmented_rows(X),
-            centroids,
-            blocked,
-            m,
-            tol,
-            max_iter,
-            _COINCIDENCE_RELATIVE,
-            chunk_rows,
-            block_rows,
-            objectives,
-            n_iter,
-            converged,
-        )
-        _kernels.from_blocks(blocked, chunk_rows, block_rows, memberships)
+    _kernels.fcm_run(
+        _augmented_rows(X),
+        centroids,
+        blocked,
+        m,
+        tol,
+        max_iter,
+        _COINCIDENCE_RELATIVE,
+        chunk_rows,
+        block_rows,
+        objectives,
+        n_iter,
+        converged,
+    )
+    _kernels.from_blocks(blocked, chunk_rows, block_rows, memberships)
     return memberships, objectives, n_iter, converged
 
 
 def _initial_centroids(X: np.ndarray, initial: np.ndarray, m: float) -> np.ndarray:
     """Centroids (s, c, d) from memberships (s, n, c), one start at a time.
 
-    Only one start's ``u^m`` exists at a time, so the first centroids cost
-    (n, c) of memory, not another (s, n, c) array.
+    Only one start's ``u^m`` (through the kernel's power, as accurate as
+    ``np.power`` to about 1e-15) exists at a time, so the first centroids cost
+    (n, c) of memory, not another (s, n, c) array.  Call inside
+    :class:`_KernelThreads`.
     """
     data_with_ones = np.hstack([X, np.ones((X.shape[0], 1))])
     n_features = X.shape[1]
     centroids = np.empty((initial.shape[0], initial.shape[2], n_features))
+    powered = np.empty(initial.shape[1:])
     for start, memberships in enumerate(initial):
-        sums = np.power(memberships, m).T @ data_with_ones
+        _kernels.powers(
+            np.ascontiguousarray(memberships, dtype=np.float64).reshape(-1), m, powered.reshape(-1)
+        )
+        sums = powered.T @ data_with_ones
         centroids[start] = sums[:, :n_features] / sums[:, n_features:]
     return centroids
 
@@ -794,12 +814,13 @@ def fuzzy_cmeans(
     else:
         initial = _check_initial_memberships(initial_memberships, n_starts, n_samples, n_clusters)
     if compiled:
-        centroids = _initial_centroids(X, initial, m)
-        # Rebinding `initial` lets an array made here go before the iterations start.
-        initial = _kernel_blocks(initial, threads)
-        memberships, objectives, n_iter, converged = _compiled_run(
-            X, centroids, initial, m, float(tol), int(max_iter), threads
-        )
+        with _KernelThreads(threads):
+            centroids = _initial_centroids(X, initial, m)
+            # Rebinding `initial` lets an array made here go before the iterations start.
+            initial = _kernel_blocks(initial, threads)
+            memberships, objectives, n_iter, converged = _compiled_run(
+                X, centroids, initial, m, float(tol), int(max_iter), threads
+            )
         del initial
     else:
         centroids, memberships, objectives, n_iter, converged = _run_starts(
