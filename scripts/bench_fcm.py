@@ -174,7 +174,10 @@ def environment_report() -> None:
 
         print(f"  numba {numba.__version__}: {numba.config.NUMBA_NUM_THREADS} thread(s) available")
     else:
-        print("  numba not importable: precision='fast' falls back to float32 NumPy")
+        print(
+            "  numba not in use (missing or GLOAM_DISABLE_NUMBA=1): "
+            "precision='fast' runs the float64 NumPy path"
+        )
     print(f"  gloam threads: {fcm._default_threads()} (GLOAM_NUM_THREADS / OMP_NUM_THREADS / CPUs)")
 
 
