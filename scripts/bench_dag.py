@@ -1,0 +1,193 @@
+"""Scale figures of the workflow: DAG build and dry run of a large grid, and a real local run.
+
+1. Dry run of 200 datasets x 3 settings variants x c in 2..25: a generated datasets table whose
+   matrix and sample-sheet files are empty placeholders (a dry run never reads them), timed
+   as ``snakemake -n`` (DAG build, job selection, job listing). Reference measured in the same
+   run: a trivial one-rule Snakefile with the same number of jobs, so the ratio says what
+   gloam's rules and helpers add on top of Snakemake itself. With ``--slurm-python`` (a Python
+   that has ``snakemake-executor-plugin-slurm``) the same dry run through
+   ``config/profiles/slurm`` is timed too: the plugin's start-up is part of every cluster run.
+2. A real local run over 20 small generated datasets with ``--cores 2`` (config defaults apart
+   from the data size), wall time in seconds. Reference from the same run: the sum of the
+   jobs' own wall times as Snakemake's ``benchmark:`` files record them, divided by the cores,
+   i.e. the wall time if jobs packed the cores perfectly with no per-job overhead.
+
+Nothing here asserts a time; the figures are printed for a person to read.
+
+Usage::
+
+    python scripts/bench_dag.py [--datasets 200] [--variants 3] [--max-clusters 25]
+                                [--real-datasets 20] [--real-genes 500] [--skip-real] [--skip-dry]
+                                [--slurm-python PATH] [--workdir DIR]
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import platform
+import re
+import shutil
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import pandas as pd
+import yaml
+
+REPO = Path(__file__).resolve().parents[1]
+SNAKEFILE = REPO / "Snakefile"
+VARIANTS = {
+    # Three plausible settings a core facility compares: the default filter, a stricter one,
+    # and a fixed fuzzifier instead of the estimate.
+    "default": {},
+    "strict": {"preparation": {"min_sd": 0.5}},
+    "m_fixed": {"fuzzifier": {"m": 1.6}},
+}
+
+
+def snakemake(python: str, workdir: Path, *args: str, quiet: bool = True) -> tuple[float, str]:
+    """Run Snakemake in ``workdir``; return (wall seconds, stdout+stderr)."""
+    command = [python, "-m", "snakemake", "--directory", str(workdir), *args]
+    if quiet:
+        command += ["--quiet", "rules"]
+    t0 = time.perf_counter()
+    proc = subprocess.run(command, capture_output=True, text=True)
+    seconds = time.perf_counter() - t0
+    output = proc.stdout + proc.stderr
+    if proc.returncode != 0:
+        raise SystemExit(f"snakemake {' '.join(args)} failed:\n{output[-4000:]}")
+    return seconds, output
+
+
+def job_count(output: str) -> int:
+    match = re.search(r"^total\s+(\d+)$", output, re.MULTILINE)
+    if not match:
+        raise SystemExit(f"no job total in Snakemake's output:\n{output[-2000:]}")
+    return int(match.group(1))
+
+
+def grid_workdir(directory: Path, n_datasets: int, n_variants: int, max_clusters: int) -> Path:
+    data = directory / "data"
+    data.mkdir(parents=True)
+    rows = ["name\tmatrix\tsamples\tvalue_type"]
+    for i in range(n_datasets):
+        matrix, samples = data / f"d{i:03d}_counts.tsv", data / f"d{i:03d}_samples.tsv"
+        matrix.touch()
+        samples.touch()
+        rows.append(f"d{i:03d}\t{matrix}\t{samples}\tcounts")
+    (directory / "datasets.tsv").write_text("\n".join(rows) + "\n", encoding="utf-8")
+    variants = dict(list(VARIANTS.items())[:n_variants])
+    config = {
+        "datasets": "datasets.tsv",
+        "scan": {"min_clusters": 2, "max_clusters": max_clusters},
+        "variants": variants,
+    }
+    (directory / "config.yaml").write_text(yaml.safe_dump(config), encoding="utf-8")
+    return directory
+
+
+def trivial_workdir(directory: Path, n_jobs: int) -> Path:
+    directory.mkdir(parents=True)
+    (directory / "Snakefile").write_text(
+        f"N = range({n_jobs - 1})\n\n"
+        "rule all:\n    input: expand('out/{i}.txt', i=N)\n\n"
+        "rule one:\n    output: 'out/{i}.txt'\n    shell: 'touch {output}'\n",
+        encoding="utf-8",
+    )
+    return directory
+
+
+def dry_runs(args: argparse.Namespace, root: Path) -> None:
+    grid = grid_workdir(root / "grid", args.datasets, args.variants, args.max_clusters)
+    common = ["--snakefile", str(SNAKEFILE), "--configfile", str(grid / "config.yaml"), "-n"]
+    python = sys.executable
+
+    seconds_quiet, output = snakemake(python, grid, *common)
+    n_jobs = job_count(output)
+    seconds_full, _ = snakemake(python, grid, *common, quiet=False)
+
+    trivial = trivial_workdir(root / "trivial", n_jobs)
+    ref_seconds, ref_output = snakemake(
+        python, trivial, "--snakefile", str(trivial / "Snakefile"), "-n"
+    )
+    assert job_count(ref_output) == n_jobs
+
+    runs = args.datasets * args.variants
+    print(f"\n== dry run: {args.datasets} datasets x {args.variants} variants x "
+          f"c in 2..{args.max_clusters} = {runs} runs, {n_jobs} jobs")  # fmt: skip
+    print(f"gloam   snakemake -n --quiet rules  {seconds_quiet:8.1f} s")
+    print(f"gloam   snakemake -n (every job)    {seconds_full:8.1f} s")
+    print(f"trivial snakemake -n --quiet rules  {ref_seconds:8.1f} s  (same job count)")
+    print(f"ratio gloam / trivial               {seconds_quiet / ref_seconds:8.2f}")
+    print(f"per job                             {1e3 * seconds_quiet / n_jobs:8.2f} ms")
+    if args.slurm_python:
+        profile = root / "slurm-profile"
+        shutil.copytree(REPO / "config" / "profiles" / "slurm", profile)
+        slurm_seconds, _ = snakemake(args.slurm_python, grid, *common, "--profile", str(profile))
+        print(f"gloam   -n --profile slurm          {slurm_seconds:8.1f} s  (plugin loaded; "
+              f"SLURM_CONF={'set' if os.environ.get('SLURM_CONF') else 'unset'})")  # fmt: skip
+
+
+def real_run(args: argparse.Namespace, root: Path) -> None:
+    from gloam.demo import write_demo
+
+    work = root / "real"
+    rows = ["name\tmatrix\tsamples\tvalue_type"]
+    for i in range(args.real_datasets):
+        name = f"r{i:02d}"
+        write_demo(work / "data" / name, seed=1000 + i, n_genes=args.real_genes)
+        rows.append(f"{name}\tdata/{name}/counts.tsv\tdata/{name}/samples.tsv\tcounts")
+    (work / "datasets.tsv").write_text("\n".join(rows) + "\n", encoding="utf-8")
+    (work / "config.yaml").write_text(yaml.safe_dump({"datasets": "datasets.tsv"}))
+    common = ["--snakefile", str(SNAKEFILE), "--configfile", str(work / "config.yaml")]
+    _, plan = snakemake(sys.executable, work, *common, "-n")
+    n_jobs = job_count(plan)
+    seconds, _ = snakemake(sys.executable, work, *common, "--cores", "2")
+
+    bench = [pd.read_csv(p, sep="\t") for p in (work / "benchmarks").rglob("*.tsv")]
+    busy = sum(float(b["s"].iloc[0]) for b in bench)
+    ideal = busy / 2
+    print(f"\n== real local run: {args.real_datasets} datasets x {args.real_genes} genes "
+          f"(config defaults otherwise), --cores 2, {n_jobs} jobs")  # fmt: skip
+    print(f"wall time                           {seconds:8.1f} s")
+    print(f"jobs with a benchmark file          {len(bench):8d} (compute rules)")
+    print(f"their summed wall time / 2 cores    {ideal:8.1f} s")
+    print(
+        f"ratio wall / ideal                  {seconds / ideal:8.2f}  "
+        "(>1: per-job start-up, uncovered small rules, idle cores)"
+    )
+    print(f"per job                             {seconds / n_jobs:8.2f} s")
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.split("\n\n", 1)[0])
+    parser.add_argument("--datasets", type=int, default=200)
+    parser.add_argument("--variants", type=int, default=3, choices=range(1, len(VARIANTS) + 1))
+    parser.add_argument("--max-clusters", type=int, default=25)
+    parser.add_argument("--real-datasets", type=int, default=20)
+    parser.add_argument("--real-genes", type=int, default=500)
+    parser.add_argument("--skip-real", action="store_true")
+    parser.add_argument("--skip-dry", action="store_true")
+    parser.add_argument("--slurm-python", help="Python with snakemake-executor-plugin-slurm")
+    parser.add_argument("--workdir", type=Path, help="keep the generated files here")
+    args = parser.parse_args()
+
+    print(f"python {platform.python_version()}, {os.cpu_count()} CPUs, "
+          f"load average {os.getloadavg()[0]:.2f}")  # fmt: skip
+    root = args.workdir or Path(tempfile.mkdtemp(prefix="gloam-bench-dag-"))
+    root.mkdir(parents=True, exist_ok=True)
+    try:
+        if not args.skip_dry:
+            dry_runs(args, root)
+        if not args.skip_real:
+            real_run(args, root)
+    finally:
+        if args.workdir is None:
+            shutil.rmtree(root, ignore_errors=True)
+
+
+if __name__ == "__main__":
+    main()
