@@ -279,7 +279,7 @@ def test_jobs_request_the_threads_and_memory_their_rules_declare(slurm_run):
     declared = {}
     for output in slurm_run.outputs:
         declared.update(declared_resources(output))
-    checked = 0
+    checked = []
     for record in slurm_run.records[0] + slurm_run.records[1]:
         key = rule_of(record["Comment"])
         if key is None or record["State"] != "COMPLETED":
@@ -287,10 +287,9 @@ def test_jobs_request_the_threads_and_memory_their_rules_declare(slurm_run):
         threads, mem_mb = declared[key]
         assert int(record["AllocCPUS"]) == threads, (key, record)
         assert record["ReqMem"] == f"{mem_mb}M", (key, record)
-        checked += 1
-    assert checked >= len(DATASETS) * 3  # at least prepare, fuzzifier and a scan per dataset
-    scans = [r for r in slurm_run.records[1] + slurm_run.records[0] if "rule_scan_" in r["Comment"]]
-    assert scans and all(int(r["AllocCPUS"]) >= 2 for r in scans), "scan jobs use 2 threads"
+        checked.append(threads)
+    assert len(checked) >= len(DATASETS) * 3  # at least prepare, fuzzifier and a scan each
+    assert max(checked) > 1, "no multi-threaded job: the CPU check compared only 1 with 1"
 
 
 def test_restart_after_interruption_resubmits_only_missing_jobs(slurm_run):
