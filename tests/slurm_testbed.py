@@ -532,6 +532,11 @@ def start(root: Path | None = None, *, install: bool = True) -> Testbed:
         A daemon failed to start or the probe job did not complete.
     """
     root = root or default_root()
+    if os.geteuid() != 0:
+        raise TestbedUnavailable(
+            "the SLURM test cluster needs root (daemons run as SlurmUser=root and it links "
+            f"{SYSTEM_SLURM_CONF} and uses {MUNGE_SOCKET.parent}); this is not root"
+        )
     install_s = ensure_packages() if install else 0.0
     if _missing_programs():
         raise TestbedUnavailable(f"SLURM programs missing: {_missing_programs()}")
