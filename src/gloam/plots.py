@@ -462,9 +462,10 @@ def plot_centroid_correlation(
     labels = list(cluster_labels) if cluster_labels else [f"C{k + 1}" for k in range(n_clusters)]
     with np.errstate(invalid="ignore", divide="ignore"):
         correlation = np.corrcoef(centroids) if n_clusters > 1 else np.ones((1, 1))
-    size = 1.2 + 0.42 * n_clusters
+    # A floor on the size keeps the colour-bar label readable for small c.
+    size = max(3.4, 1.2 + 0.42 * n_clusters)
     with plt.rc_context(_RC):
-        figure, axis = plt.subplots(figsize=(size + 1.2, size), layout="constrained")
+        figure, axis = plt.subplots(figsize=(size + 1.6, size), layout="constrained")
         image = axis.imshow(correlation, cmap="PuOr_r", vmin=-1.0, vmax=1.0)
         axis.set_xticks(np.arange(n_clusters), labels, rotation=90)
         axis.set_yticks(np.arange(n_clusters), labels)
@@ -481,7 +482,8 @@ def plot_centroid_correlation(
                     color="white" if abs(value) > 0.6 else "#111827",
                 )
         colourbar = figure.colorbar(image, ax=axis, shrink=0.8)
-        colourbar.set_label("Pearson correlation of centroids (−1 to 1)")
+        colourbar.set_label("Pearson r between centroids (−1 to 1)")
+        axis.set_title("Centroid-to-centroid correlation", loc="left")
         axis.set_xlabel("cluster")
         axis.set_ylabel("cluster")
     return figure
