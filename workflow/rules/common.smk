@@ -6,6 +6,7 @@
 
 import copy
 import math
+import os
 import re
 from pathlib import Path
 
@@ -242,6 +243,25 @@ def get_threads(rule, default):
     return _override(rule, "threads") or default
 
 
+def _input_mb(input):
+    """Summed size of a job's input files in MB, the value ``input.size_mb`` gives.
+
+    ``input.size_mb`` starts an asyncio event loop on every call, which was a quarter of the
+    dry run of a large grid; a local file needs one stat. A missing file raises
+    FileNotFoundError naming it, which Snakemake turns into "<TBD>" until the file exists,
+    as it does for ``input.size_mb``. Storage-plugin files and broken symlinks keep
+    Snakemake's own code path (and its error message).
+    """
+    if any(file.is_storage for file in input):
+        return input.size_mb
+    try:
+        return sum(os.path.getsize(file) / 1024 / 1024 for file in input)
+    except FileNotFoundError as error:
+        if os.path.islink(error.filename):
+            return input.size_mb
+        raise
+
+
 def _estimate(rule, key, value):
     chosen = _override(rule, key)
     return int(chosen) if chosen else int(math.ceil(value))
@@ -249,14 +269,16 @@ def _estimate(rule, key, value):
 
 def mem_mb_for(rule, base_mb, mb_per_input_mb):
     def mem_mb(wildcards, input, attempt):
-        return attempt * _estimate(rule, "mem_mb", base_mb + mb_per_input_mb * input.size_mb)
+        size = _input_mb(input)
+        return attempt * _estimate(rule, "mem_mb", base_mb + mb_per_input_mb * size)
 
     return mem_mb
 
 
 def runtime_for(rule, base_min, min_per_input_mb):
     def runtime(wildcards, input, attempt):
-        return attempt * _estimate(rule, "runtime", base_min + min_per_input_mb * input.size_mb)
+        size = _input_mb(input)
+        return attempt * _estimate(rule, "runtime", base_min + min_per_input_mb * size)
 
     return runtime
 
@@ -265,11 +287,12 @@ def scan_mem_mb(wildcards, input, attempt):
     # All starts are kept: memberships of n_starts x n_genes x c beside the data.
     scan = get_run(wildcards)["scan"]
     c = int(wildcards.c)
-    work = input.size_mb * (6 + scan["n_starts"] * c / 8)
+    work = _input_mb(input) * (6 + scan["n_starts"] * c / 8)
     return attempt * _estimate("scan", "mem_mb", 500 + work)
 
 
 def scan_runtime(wildcards, input, attempt):
     scan = get_run(wildcards)["scan"]
     c = int(wildcards.c)
-    return attempt * _estimate("scan", "runtime", 10 + input.size_mb * scan["n_starts"] * c / 600)
+    work = _input_mb(input) * scan["n_starts"] * c / 600
+    return attempt * _estimate("scan", "runtime", 10 + work)
