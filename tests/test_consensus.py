@@ -268,3 +268,12 @@ def test_membership_table_has_the_documented_columns(iris_run):
         membership_table(consensus, ["g"] * X.shape[0])
     with pytest.raises(GloamError, match="gene IDs"):
         membership_table(consensus, genes[:-1])
+
+
+def test_consensus_of_already_aligned_starts_equals_consensus_of_raw_starts():
+    X = np.random.default_rng(3).normal(size=(200, 5))
+    result = fuzzy_cmeans(X, 3, 1.8, n_starts=6, rng=2, tol=1e-6)
+    direct = consensus_partition(result)
+    from_aligned = consensus_partition(align_starts(result), already_aligned=True)
+    np.testing.assert_array_equal(direct.memberships, from_aligned.memberships)
+    np.testing.assert_array_equal(direct.stability, from_aligned.stability)

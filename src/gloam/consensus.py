@@ -175,7 +175,7 @@ def _summarise(aligned: np.ndarray, centroids: np.ndarray, m: float) -> Consensu
     )
 
 
-def consensus_partition(result: MultiStartResult) -> Consensus:
+def consensus_partition(result: MultiStartResult, *, already_aligned: bool = False) -> Consensus:
     """Summarise all starts of a run per gene after aligning them to the best start.
 
     The consensus membership is the mean over aligned starts, renormalised to rows summing to
@@ -189,6 +189,9 @@ def consensus_partition(result: MultiStartResult) -> Consensus:
     ----------
     result : MultiStartResult
         All starts of one run, e.g. from :func:`gloam.fcm.fuzzy_cmeans`.
+    already_aligned : bool, default False
+        True when ``result`` comes from :func:`align_starts`, so a caller that needs the
+        aligned starts too aligns them only once.
 
     Returns
     -------
@@ -196,7 +199,7 @@ def consensus_partition(result: MultiStartResult) -> Consensus:
         Clusters in the best start's order (``order = arange(c)``); apply :func:`reorder` with
         :func:`order_clusters_by_peak_time` for the user-facing order.
     """
-    aligned = align_starts(result)
+    aligned = result if already_aligned else align_starts(result)
     return _summarise(aligned.memberships, aligned.centroids[aligned.best_index], aligned.m)
 
 

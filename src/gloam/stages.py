@@ -415,15 +415,14 @@ def run_consensus(
             f"the chosen number of clusters {chosen} has no scan file among {sorted(results)}; "
             "rerun the scan"
         )
-    result = results[chosen]
-    consensus = consensus_partition(result)
+    aligned = align_starts(results[chosen])
+    consensus = consensus_partition(aligned, already_aligned=True)
     conditions = columns["condition"].astype(str).tolist()
     several = len(set(conditions)) > 1
     permutation = order_clusters_by_peak_time(
         consensus.centroids, columns["time"].to_numpy(), conditions if several else None
     )
     consensus = reorder(consensus, permutation)
-    aligned = align_starts(result)
     # Each start's top cluster in the final numbering: aligned label -> column position.
     position = np.empty(chosen, dtype=np.intp)
     position[consensus.order] = np.arange(chosen)
