@@ -18,7 +18,6 @@ include: "workflow/rules/fuzzifier.smk"
 include: "workflow/rules/scan.smk"
 include: "workflow/rules/select.smk"
 include: "workflow/rules/export.smk"
-include: "workflow/rules/figures.smk"
 include: "workflow/rules/summary.smk"
 
 

@@ -1,4 +1,4 @@
-"""Snakemake rule ``select``: validity indices over c, the recommended and the used c."""
+"""Snakemake rule ``select``: validity over c, the c used, and its consensus."""
 
 from gloam.errors import exit_on_user_error
 from gloam.stages import rule_environment, run_select
@@ -11,7 +11,8 @@ with rule_environment(job.log[0], job.threads):
             job.input.prepared,
             list(job.input.scans),
             job.params.settings,
-            job.output.validity,
-            job.output.selection,
+            out_validity=job.output.validity,
+            out_selection=job.output.selection,
+            out_consensus=job.output.consensus,
         )
     )

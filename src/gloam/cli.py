@@ -235,48 +235,40 @@ def _run_cluster(args: argparse.Namespace) -> int:
     for c, path in zip(numbers, scans, strict=True):
         stages.run_scan(args.prepared, c, out / "fuzzifier.json", scan_settings, args.seed, path)
     stages.run_select(
-        args.prepared, scans, {"n_clusters": fixed}, out / "validity.tsv", out / "selection.json"
+        args.prepared,
+        scans,
+        {"n_clusters": fixed},
+        out_validity=out / "validity.tsv",
+        out_selection=out / "selection.json",
+        out_consensus=out / "consensus.npz",
     )
-    stages.run_consensus(args.prepared, scans, out / "selection.json", out / "consensus.npz")
-    stages.export_tables(
-        args.prepared, out / "consensus.npz", out / "memberships.tsv", out / "centroids.tsv"
-    )
-    stages.export_gene_sets(out / "memberships.tsv", thresholds, out / "genesets")
-    settings = {"seed": args.seed, "fuzzifier": {"m": m}, "scan": scan_settings}
-    stages.export_h5ad(
+    figures = out / "figures"
+    stages.export_results(
         args.prepared,
         out / "consensus.npz",
         out / "fuzzifier.json",
+        out / "fuzzifier_curve.tsv",
         out / "selection.json",
-        settings,
-        out / "gloam.h5ad",
+        out / "validity.tsv",
+        {"seed": args.seed, "fuzzifier": {"m": m}, "scan": scan_settings},
+        memberships=out / "memberships.tsv",
+        centroids=out / "centroids.tsv",
+        h5ad=out / "gloam.h5ad",
+        validity_figure=(figures / "validity.png", figures / "validity.pdf"),
+        fuzzifier_figure=(figures / "fuzzifier.png", figures / "fuzzifier.pdf"),
+        correlation_figure=(
+            figures / "centroid_correlation.png",
+            figures / "centroid_correlation.pdf",
+        ),
     )
-    figures = out / "figures"
-    stages.figure_profiles(
+    stages.export_core_genes(
         args.prepared,
         out / "memberships.tsv",
         out / "centroids.tsv",
         thresholds,
         args.time_unit,
-        figures / "profiles.png",
-        figures / "profiles.pdf",
-    )
-    stages.figure_validity(
-        out / "validity.tsv",
-        out / "selection.json",
-        figures / "validity.png",
-        figures / "validity.pdf",
-    )
-    stages.figure_fuzzifier(
-        out / "fuzzifier.json",
-        out / "fuzzifier_curve.tsv",
-        figures / "fuzzifier.png",
-        figures / "fuzzifier.pdf",
-    )
-    stages.figure_centroid_correlation(
-        out / "centroids.tsv",
-        figures / "centroid_correlation.png",
-        figures / "centroid_correlation.pdf",
+        genesets=out / "genesets",
+        profiles_figure=(figures / "profiles.png", figures / "profiles.pdf"),
     )
     print(f"gloam: clustered -> {out}")
     return 0

@@ -17,7 +17,7 @@ Files between stages
 ``selection.json`` (:func:`run_select`)
     ``n_clusters`` (used), ``method`` (``auto`` or ``fixed``), ``recommended``, ``reason``,
     ``scanned``.
-``consensus.npz`` (:func:`run_consensus`)
+``consensus.npz`` (:func:`run_select`)
     For the chosen c, clusters in peak-time order: ``memberships``, ``membership_sd``
     (n_genes, c), ``top_cluster`` (0-based), ``top_membership``, ``stability`` (n_genes,),
     ``centroids`` (c, n_columns), ``order`` (best start's label of each column),
@@ -32,6 +32,7 @@ order a scheduler runs them in.
 from __future__ import annotations
 
 import contextlib
+import dataclasses
 import json
 import os
 import platform
@@ -58,11 +59,12 @@ __all__ = [
     "run_scan",
     "read_scan",
     "run_select",
-    "run_consensus",
     "read_consensus",
     "export_tables",
     "export_gene_sets",
     "export_h5ad",
+    "export_results",
+    "export_core_genes",
     "figure_profiles",
     "figure_validity",
     "figure_fuzzifier",
@@ -326,41 +328,46 @@ def read_scan(path: PathLike, genes: pd.Index | None = None):
     )
 
 
-def _scans_by_c(scan_files: Sequence[PathLike], genes: pd.Index) -> dict[int, Any]:
-    results = {}
-    for path in scan_files:
-        result = read_scan(path, genes)
-        results[result.n_clusters] = result
-    return results
-
-
-# ------------------------------------------------------------------ selection and consensus
-
-
 def run_select(
     prepared: PathLike,
     scan_files: Sequence[PathLike],
     settings: Mapping[str, Any],
+    *,
     out_validity: PathLike,
     out_selection: PathLike,
+    out_consensus: PathLike,
 ) -> None:
-    """Validity indices for every scanned c, the recommended c and the c used.
+    """Validity indices for every scanned c, the c used, and the consensus for that c.
 
     ``settings["n_clusters"]`` is ``"auto"`` (use the recommendation of
     :func:`gloam.validity.recommend_n_clusters`) or an integer (use it).  The validity TSV
     has the columns of :func:`gloam.validity.validity_table` (with ``mean_stability``) and,
     from :func:`gloam.validity.recommendation_reasons`, ``distance_ratio``, ``eligible``,
-    ``recommended`` and ``reason``, plus ``used`` (True for the c used downstream).
+    ``recommended`` and ``reason``, plus ``used`` (True for the c used downstream).  The
+    consensus file is described in the module notes.
+
+    Scan files are read one at a time, so memory holds one c's starts, not the whole scan;
+    the chosen c is therefore read and aligned a second time for its consensus.
     """
     from gloam.consensus import consensus_partition
     from gloam.validity import recommendation_reasons, validity_table
 
-    zscores, _columns = _read_prepared(prepared)
-    results = _scans_by_c(scan_files, zscores.index)
-    stability = {c: float(consensus_partition(r).stability.mean()) for c, r in results.items()}
-    table = validity_table(
-        zscores.to_numpy(), {c: r.best() for c, r in results.items()}, stability=stability
-    )
+    zscores, columns = _read_prepared(prepared)
+    file_of: dict[int, PathLike] = {}
+    best, stability = {}, {}
+    for path in scan_files:
+        result = read_scan(path, zscores.index)
+        c = result.n_clusters
+        file_of[c] = path
+        # Copies: a view of the best start would keep every start of this c in memory.
+        partition = result.best()
+        best[c] = dataclasses.replace(
+            partition,
+            memberships=partition.memberships.copy(),
+            centroids=partition.centroids.copy(),
+        )
+        stability[c] = float(consensus_partition(result).stability.mean())
+    table = validity_table(zscores.to_numpy(), best, stability=stability)
     reasons = recommendation_reasons(table).rename(columns={"chosen": "recommended"})
     table = table.merge(reasons, on="n_clusters", how="left")
     recommended = int(table.loc[table["recommended"], "n_clusters"].iloc[0])
@@ -373,11 +380,12 @@ def run_select(
         )
     else:
         used, method, reason = int(fixed), "fixed", "fixed in the config (selection.n_clusters)"
-        if used not in results:
+        if used not in file_of:
             raise GloamError(
-                f"selection.n_clusters = {used} was not scanned (scanned: {sorted(results)}); "
+                f"selection.n_clusters = {used} was not scanned (scanned: {sorted(file_of)}); "
                 "include it in the scan range"
             )
+    consensus = _consensus_arrays(read_scan(file_of[used], zscores.index), zscores, columns)
     table["used"] = table["n_clusters"] == used
     write_table(table, out_validity)
     _write_json(
@@ -386,19 +394,17 @@ def run_select(
             "method": method,
             "recommended": recommended,
             "reason": reason,
-            "scanned": sorted(int(c) for c in results),
+            "scanned": sorted(int(c) for c in file_of),
         },
         out_selection,
     )
+    _write_npz(out_consensus, **consensus)
 
 
-def run_consensus(
-    prepared: PathLike,
-    scan_files: Sequence[PathLike],
-    selection_json: PathLike,
-    out_npz: PathLike,
-) -> None:
-    """Consensus of the aligned starts for the chosen c, clusters in peak-time order."""
+def _consensus_arrays(
+    result: Any, zscores: pd.DataFrame, columns: pd.DataFrame
+) -> dict[str, np.ndarray]:
+    """The arrays of ``consensus.npz`` for one c's starts, clusters in peak-time order."""
     from gloam.consensus import (
         align_starts,
         cluster_names,
@@ -407,15 +413,8 @@ def run_consensus(
         reorder,
     )
 
-    zscores, columns = _read_prepared(prepared)
-    chosen = int(_read_json(selection_json, "selection")["n_clusters"])
-    results = _scans_by_c(scan_files, zscores.index)
-    if chosen not in results:
-        raise GloamError(
-            f"the chosen number of clusters {chosen} has no scan file among {sorted(results)}; "
-            "rerun the scan"
-        )
-    aligned = align_starts(results[chosen])
+    c = result.n_clusters
+    aligned = align_starts(result)
     consensus = consensus_partition(aligned, already_aligned=True)
     conditions = columns["condition"].astype(str).tolist()
     several = len(set(conditions)) > 1
@@ -424,29 +423,28 @@ def run_consensus(
     )
     consensus = reorder(consensus, permutation)
     # Each start's top cluster in the final numbering: aligned label -> column position.
-    position = np.empty(chosen, dtype=np.intp)
-    position[consensus.order] = np.arange(chosen)
+    position = np.empty(c, dtype=np.intp)
+    position[consensus.order] = np.arange(c)
     start_top = position[np.argmax(aligned.memberships, axis=2)].astype(np.int16)
-    _write_npz(
-        out_npz,
-        memberships=consensus.memberships,
-        membership_sd=consensus.membership_sd,
-        top_cluster=consensus.top_cluster,
-        top_membership=consensus.top_membership,
-        stability=consensus.stability,
-        centroids=consensus.centroids,
-        order=consensus.order,
-        start_top_cluster=start_top,
-        cluster_names=np.asarray(cluster_names(chosen), dtype=str),
-        genes=zscores.index.to_numpy(dtype=str),
-        columns=zscores.columns.to_numpy(dtype=str),
-        m=np.float64(consensus.m),
-        n_starts=np.int64(consensus.n_starts),
-    )
+    return {
+        "memberships": consensus.memberships,
+        "membership_sd": consensus.membership_sd,
+        "top_cluster": consensus.top_cluster,
+        "top_membership": consensus.top_membership,
+        "stability": consensus.stability,
+        "centroids": consensus.centroids,
+        "order": consensus.order,
+        "start_top_cluster": start_top,
+        "cluster_names": np.asarray(cluster_names(c), dtype=str),
+        "genes": zscores.index.to_numpy(dtype=str),
+        "columns": zscores.columns.to_numpy(dtype=str),
+        "m": np.float64(consensus.m),
+        "n_starts": np.int64(consensus.n_starts),
+    }
 
 
 def read_consensus(path: PathLike) -> dict[str, np.ndarray]:
-    """Arrays of a consensus file written by :func:`run_consensus` (see the module notes)."""
+    """Arrays of a consensus file written by :func:`run_select` (see the module notes)."""
     return _load_npz(path, "consensus file")
 
 
@@ -689,6 +687,61 @@ def figure_centroid_correlation(
     centroids = pd.read_csv(centroids_tsv, sep="\t", index_col="cluster")
     figure = plot_centroid_correlation(centroids.to_numpy(), centroids.index.astype(str).tolist())
     save_figure(figure, out_png, out_pdf)
+
+
+# ------------------------------------------------------------------ the two export stages
+
+FigurePaths = tuple[PathLike, PathLike]  # (PNG, PDF)
+
+
+def export_results(
+    prepared: PathLike,
+    consensus_npz: PathLike,
+    fuzzifier_json: PathLike,
+    fuzzifier_curve: PathLike,
+    selection_json: PathLike,
+    validity_tsv: PathLike,
+    settings: Mapping[str, Any],
+    *,
+    memberships: PathLike,
+    centroids: PathLike,
+    h5ad: PathLike,
+    validity_figure: FigurePaths,
+    fuzzifier_figure: FigurePaths,
+    correlation_figure: FigurePaths,
+) -> None:
+    """Everything of a run that does not depend on the core-gene thresholds.
+
+    The tables (:func:`export_tables`), ``gloam.h5ad`` (:func:`export_h5ad`) and the
+    validity, fuzzifier and centroid-correlation figures, each as PNG and PDF.
+    """
+    export_tables(prepared, consensus_npz, memberships, centroids)
+    export_h5ad(prepared, consensus_npz, fuzzifier_json, selection_json, settings, h5ad)
+    figure_validity(validity_tsv, selection_json, *validity_figure)
+    figure_fuzzifier(fuzzifier_json, fuzzifier_curve, *fuzzifier_figure)
+    figure_centroid_correlation(centroids, *correlation_figure)
+
+
+def export_core_genes(
+    prepared: PathLike,
+    memberships_tsv: PathLike,
+    centroids_tsv: PathLike,
+    thresholds: Sequence[float],
+    time_unit: str,
+    *,
+    genesets: PathLike,
+    profiles_figure: FigurePaths,
+    prefix: str = "gloam",
+) -> None:
+    """Everything of a run that depends on the core-gene thresholds.
+
+    The gene-set folder (:func:`export_gene_sets`) and the cluster-profile figure, whose
+    panels give the core-gene counts (:func:`figure_profiles`).
+    """
+    export_gene_sets(memberships_tsv, thresholds, genesets, prefix=prefix)
+    figure_profiles(
+        prepared, memberships_tsv, centroids_tsv, thresholds, time_unit, *profiles_figure
+    )
 
 
 # ------------------------------------------------------------------ summary across runs

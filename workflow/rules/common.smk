@@ -299,6 +299,14 @@ def scan_mem_mb(wildcards, input, attempt):
     return attempt * _estimate("scan", "mem_mb", 500 + work)
 
 
+def select_mem_mb(wildcards, input, attempt):
+    # Scan files are read one at a time and their size grows with c: the largest one, its
+    # aligned copy and the consensus are in memory at once.
+    numbers = cluster_numbers(get_run(wildcards))
+    largest = _input_mb(input) * max(numbers) / sum(numbers)
+    return attempt * _estimate("select", "mem_mb", 500 + 4 * largest)
+
+
 def scan_runtime(wildcards, input, attempt):
     scan = get_run(wildcards)["scan"]
     c = int(wildcards.c)

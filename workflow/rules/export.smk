@@ -1,11 +1,16 @@
-# Exports. Only the gene-set rule reads the core thresholds, so changing them reruns it and the
-# figures but never the clustering. Tiny jobs share one group so a cluster gets few of them.
+# Exports and figures: two jobs per run. `export` does not read the core thresholds, so
+# changing them reruns only `core_genes` (and the summary), never the clustering or `export`.
+# Both share one group, so a cluster gets one job per run for them.
 
 
-rule export_tables:
+rule export:
     input:
         prepared=run_path("{run}", "prepared/prepared.h5ad"),
         consensus=run_path("{run}", "consensus.npz"),
+        fuzzifier=run_path("{run}", "fuzzifier.json"),
+        fuzzifier_curve=run_path("{run}", "fuzzifier_curve.tsv"),
+        selection=run_path("{run}", "selection.json"),
+        validity=run_path("{run}", "validity.tsv"),
     output:
         memberships=report(
             run_path("{run}", "memberships.tsv"),
@@ -19,23 +24,49 @@ rule export_tables:
             category="{run}",
             subcategory="4 clusters",
         ),
+        h5ad=run_path("{run}", "gloam.h5ad"),
+        validity_png=report(
+            run_path("{run}", "figures/validity.png"),
+            caption="../report/validity.rst",
+            category="{run}",
+            subcategory="3 number of clusters",
+        ),
+        validity_pdf=run_path("{run}", "figures/validity.pdf"),
+        fuzzifier_png=report(
+            run_path("{run}", "figures/fuzzifier.png"),
+            caption="../report/fuzzifier.rst",
+            category="{run}",
+            subcategory="2 fuzzifier",
+        ),
+        fuzzifier_pdf=run_path("{run}", "figures/fuzzifier.pdf"),
+        correlation_png=report(
+            run_path("{run}", "figures/centroid_correlation.png"),
+            caption="../report/centroid_correlation.rst",
+            category="{run}",
+            subcategory="4 clusters",
+        ),
+        correlation_pdf=run_path("{run}", "figures/centroid_correlation.pdf"),
+    params:
+        settings=get_run_settings,
     log:
-        "logs/{run}/export_tables.log",
+        "logs/{run}/export.log",
     group:
         "finish"
-    threads: get_threads("exports", 1)
+    threads: get_threads("export", 1)
     resources:
-        mem_mb=mem_mb_for("exports", 400, 3),
-        runtime=runtime_for("exports", 2, 0.02),
+        mem_mb=mem_mb_for("export", 800, 6),
+        runtime=runtime_for("export", 3, 0.05),
     conda:
         "../envs/gloam.yaml"
     script:
-        "../../scripts/rule_export_tables.py"
+        "../../scripts/rule_export.py"
 
 
-rule export_genesets:
+rule core_genes:
     input:
+        prepared=run_path("{run}", "prepared/prepared.h5ad"),
         memberships=run_path("{run}", "memberships.tsv"),
+        centroids=run_path("{run}", "centroids.tsv"),
     output:
         genesets=report(
             directory(run_path("{run}", "genesets")),
@@ -44,41 +75,25 @@ rule export_genesets:
             category="{run}",
             subcategory="5 gene sets",
         ),
+        profiles_png=report(
+            run_path("{run}", "figures/profiles.png"),
+            caption="../report/profiles.rst",
+            category="{run}",
+            subcategory="4 clusters",
+        ),
+        profiles_pdf=run_path("{run}", "figures/profiles.pdf"),
     params:
         thresholds=config["genesets"]["thresholds"],
+        time_unit=config["figures"]["time_unit"],
     log:
-        "logs/{run}/export_genesets.log",
+        "logs/{run}/core_genes.log",
     group:
         "finish"
-    threads: get_threads("exports", 1)
+    threads: get_threads("core_genes", 1)
     resources:
-        mem_mb=mem_mb_for("exports", 400, 3),
-        runtime=runtime_for("exports", 2, 0.02),
+        mem_mb=mem_mb_for("core_genes", 800, 6),
+        runtime=runtime_for("core_genes", 3, 0.05),
     conda:
         "../envs/gloam.yaml"
     script:
-        "../../scripts/rule_export_genesets.py"
-
-
-rule export_h5ad:
-    input:
-        prepared=run_path("{run}", "prepared/prepared.h5ad"),
-        consensus=run_path("{run}", "consensus.npz"),
-        fuzzifier=run_path("{run}", "fuzzifier.json"),
-        selection=run_path("{run}", "selection.json"),
-    output:
-        h5ad=run_path("{run}", "gloam.h5ad"),
-    params:
-        settings=get_run_settings,
-    log:
-        "logs/{run}/export_h5ad.log",
-    group:
-        "finish"
-    threads: get_threads("exports", 1)
-    resources:
-        mem_mb=mem_mb_for("exports", 400, 4),
-        runtime=runtime_for("exports", 2, 0.02),
-    conda:
-        "../envs/gloam.yaml"
-    script:
-        "../../scripts/rule_export_h5ad.py"
+        "../../scripts/rule_core_genes.py"

@@ -1,4 +1,5 @@
-# Validity over c, the chosen c, and the consensus of the aligned starts for that c.
+# Validity over c, the chosen c, and the consensus of the aligned starts for that c: one job
+# per run that reads the scan files once.
 
 
 rule select:
@@ -13,6 +14,7 @@ rule select:
             subcategory="3 number of clusters",
         ),
         selection=run_path("{run}", "selection.json"),
+        consensus=run_path("{run}", "consensus.npz"),
     params:
         settings=lambda wildcards: get_run(wildcards)["selection"],
     log:
@@ -21,30 +23,9 @@ rule select:
         "benchmarks/{run}/select.tsv"
     threads: get_threads("select", 1)
     resources:
-        mem_mb=mem_mb_for("select", 500, 2),
+        mem_mb=select_mem_mb,
         runtime=runtime_for("select", 5, 0.05),
     conda:
         "../envs/gloam.yaml"
     script:
         "../../scripts/rule_select.py"
-
-
-rule consensus:
-    input:
-        prepared=run_path("{run}", "prepared/prepared.h5ad"),
-        scans=get_scan_files,
-        selection=run_path("{run}", "selection.json"),
-    output:
-        consensus=run_path("{run}", "consensus.npz"),
-    log:
-        "logs/{run}/consensus.log",
-    benchmark:
-        "benchmarks/{run}/consensus.tsv"
-    threads: get_threads("consensus", 1)
-    resources:
-        mem_mb=mem_mb_for("consensus", 500, 2),
-        runtime=runtime_for("consensus", 5, 0.05),
-    conda:
-        "../envs/gloam.yaml"
-    script:
-        "../../scripts/rule_consensus.py"

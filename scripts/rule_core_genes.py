@@ -1,19 +1,20 @@
-"""Snakemake rule ``figure_profiles``: per-cluster temporal profiles (PNG and PDF)."""
+"""Snakemake rule ``core_genes``: gene sets at each threshold and the cluster-profile figure."""
 
 from gloam.errors import exit_on_user_error
-from gloam.stages import figure_profiles, rule_environment
+from gloam.stages import export_core_genes, rule_environment
 
 job = snakemake  # noqa: F821 -- injected by Snakemake's script directive
 
 with rule_environment(job.log[0], job.threads):
     exit_on_user_error(
-        lambda: figure_profiles(
+        lambda: export_core_genes(
             job.input.prepared,
             job.input.memberships,
             job.input.centroids,
             job.params.thresholds,
             job.params.time_unit,
-            job.output.png,
-            job.output.pdf,
+            genesets=job.output.genesets,
+            profiles_figure=(job.output.profiles_png, job.output.profiles_pdf),
+            prefix=job.wildcards.run,
         )
     )

@@ -1,0 +1,26 @@
+"""Snakemake rule ``export``: tables, gloam.h5ad and the threshold-free figures of a run."""
+
+from gloam.errors import exit_on_user_error
+from gloam.stages import export_results, rule_environment
+
+job = snakemake  # noqa: F821 -- injected by Snakemake's script directive
+out = job.output
+
+with rule_environment(job.log[0], job.threads):
+    exit_on_user_error(
+        lambda: export_results(
+            job.input.prepared,
+            job.input.consensus,
+            job.input.fuzzifier,
+            job.input.fuzzifier_curve,
+            job.input.selection,
+            job.input.validity,
+            job.params.settings,
+            memberships=out.memberships,
+            centroids=out.centroids,
+            h5ad=out.h5ad,
+            validity_figure=(out.validity_png, out.validity_pdf),
+            fuzzifier_figure=(out.fuzzifier_png, out.fuzzifier_pdf),
+            correlation_figure=(out.correlation_png, out.correlation_pdf),
+        )
+    )
