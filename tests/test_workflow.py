@@ -304,6 +304,18 @@ def test_changing_the_number_of_starts_reruns_the_scan_not_the_preparation(finis
     assert "prepare" not in planned and "fuzzifier" not in planned and "demo_data" not in planned
 
 
+def test_widening_the_scan_range_runs_only_the_new_cluster_numbers(finished, tmp_path):
+    copy = tmp_path / "copy"
+    shutil.copytree(finished, copy, symlinks=True)
+    config = yaml.safe_load((copy / "config.yaml").read_text())
+    config["scan"]["max_clusters"] = 7
+    (copy / "config.yaml").write_text(yaml.safe_dump(config))
+    planned = planned_rules(copy)
+    assert planned.get("scan") == 1
+    assert "prepare" not in planned and "fuzzifier" not in planned
+    assert planned.get("select") == 1
+
+
 def test_interrupted_run_leaves_no_partial_outputs_and_rerun_completes(tmp_path):
     """SIGKILL the whole Snakemake process group while scan jobs are running."""
     config = {

@@ -223,6 +223,16 @@ def get_preparation_params(wildcards):
     }
 
 
+# The scan settings that change what one c's job computes. The range of c is left out, so
+# widening it runs only the new c and keeps the scans already made.
+START_SETTINGS = ("n_starts", "tol", "max_iter", "init", "precision")
+
+
+def get_start_settings(wildcards):
+    scan = get_run(wildcards)["scan"]
+    return {key: scan[key] for key in START_SETTINGS}
+
+
 def get_run_settings(wildcards):
     """Everything recorded in gloam.h5ad about how a run was made."""
     run = get_run(wildcards)

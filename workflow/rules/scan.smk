@@ -8,7 +8,7 @@ rule scan:
     output:
         scan=run_path("{run}", "scan/c{c}.npz"),
     params:
-        settings=lambda wildcards: get_run(wildcards)["scan"],
+        settings=get_start_settings,
         seed=config["seed"],
     log:
         "logs/{run}/scan_c{c}.log",
