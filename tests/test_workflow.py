@@ -279,12 +279,18 @@ def test_nothing_left_to_do_after_a_run(finished):
 # ------------------------------------------------------------------ reruns
 
 
-def test_changing_thresholds_reruns_only_the_core_gene_rule(finished, tmp_path):
+def copy_with_setting(finished: Path, tmp_path: Path, section: str, key: str, value) -> Path:
+    """A copy of the finished run whose config has ``section.key`` set to ``value``."""
     copy = tmp_path / "copy"
     shutil.copytree(finished, copy, symlinks=True)
     config = yaml.safe_load((copy / "config.yaml").read_text())
-    config["genesets"]["thresholds"] = [0.6, 0.8]
+    config[section][key] = value
     (copy / "config.yaml").write_text(yaml.safe_dump(config))
+    return copy
+
+
+def test_changing_thresholds_reruns_only_the_core_gene_rule(finished, tmp_path):
+    copy = copy_with_setting(finished, tmp_path, "genesets", "thresholds", [0.6, 0.8])
     planned = planned_rules(copy)
     assert planned.get("core_genes") == 1
     assert set(planned) <= {"core_genes", "summary", "all"}
@@ -294,23 +300,13 @@ def test_changing_thresholds_reruns_only_the_core_gene_rule(finished, tmp_path):
 
 
 def test_changing_the_number_of_starts_reruns_the_scan_not_the_preparation(finished, tmp_path):
-    copy = tmp_path / "copy"
-    shutil.copytree(finished, copy, symlinks=True)
-    config = yaml.safe_load((copy / "config.yaml").read_text())
-    config["scan"]["n_starts"] = 6
-    (copy / "config.yaml").write_text(yaml.safe_dump(config))
-    planned = planned_rules(copy)
+    planned = planned_rules(copy_with_setting(finished, tmp_path, "scan", "n_starts", 6))
     assert planned.get("scan") == 5
     assert "prepare" not in planned and "fuzzifier" not in planned and "demo_data" not in planned
 
 
 def test_widening_the_scan_range_runs_only_the_new_cluster_numbers(finished, tmp_path):
-    copy = tmp_path / "copy"
-    shutil.copytree(finished, copy, symlinks=True)
-    config = yaml.safe_load((copy / "config.yaml").read_text())
-    config["scan"]["max_clusters"] = 7
-    (copy / "config.yaml").write_text(yaml.safe_dump(config))
-    planned = planned_rules(copy)
+    planned = planned_rules(copy_with_setting(finished, tmp_path, "scan", "max_clusters", 7))
     assert planned.get("scan") == 1
     assert "prepare" not in planned and "fuzzifier" not in planned
     assert planned.get("select") == 1

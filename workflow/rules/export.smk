@@ -50,6 +50,8 @@ rule export:
         settings=get_run_settings,
     log:
         "logs/{run}/export.log",
+    benchmark:
+        "benchmarks/{run}/export.tsv"
     group:
         "finish"
     threads: get_threads("export", 1)
@@ -87,6 +89,8 @@ rule core_genes:
         time_unit=config["figures"]["time_unit"],
     log:
         "logs/{run}/core_genes.log",
+    benchmark:
+        "benchmarks/{run}/core_genes.tsv"
     group:
         "finish"
     threads: get_threads("core_genes", 1)

@@ -1,4 +1,6 @@
 # One job per (run, c) with every random start inside; all starts are kept in the file.
+# One thread by default: a run has a scan job per c, so jobs side by side fill the cores, and
+# for small matrices a second thread would mostly wait for the job's start-up.
 
 
 rule scan:
@@ -14,7 +16,7 @@ rule scan:
         "logs/{run}/scan_c{c}.log",
     benchmark:
         "benchmarks/{run}/scan_c{c}.tsv"
-    threads: get_threads("scan", 2)
+    threads: get_threads("scan", 1)
     resources:
         mem_mb=scan_mem_mb,
         runtime=scan_runtime,
