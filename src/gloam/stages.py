@@ -328,6 +328,9 @@ def read_scan(path: PathLike, genes: pd.Index | None = None):
     )
 
 
+# ------------------------------------------------------------------ selection and consensus
+
+
 def run_select(
     prepared: PathLike,
     scan_files: Sequence[PathLike],
