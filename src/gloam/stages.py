@@ -455,7 +455,7 @@ def read_consensus(path: PathLike) -> dict[str, np.ndarray]:
 
 
 def export_tables(
-    prepared: PathLike, consensus_npz: PathLike, out_memberships: PathLike, out_centroids: PathLike
+    consensus_npz: PathLike, out_memberships: PathLike, out_centroids: PathLike
 ) -> None:
     """Write ``memberships.tsv`` and ``centroids.tsv``.
 
@@ -466,7 +466,6 @@ def export_tables(
     """
     from gloam.consensus import Consensus, membership_table
 
-    _zscores, _columns = _read_prepared(prepared)
     data = read_consensus(consensus_npz)
     consensus = Consensus(
         memberships=data["memberships"],
@@ -718,7 +717,7 @@ def export_results(
     The tables (:func:`export_tables`), ``gloam.h5ad`` (:func:`export_h5ad`) and the
     validity, fuzzifier and centroid-correlation figures, each as PNG and PDF.
     """
-    export_tables(prepared, consensus_npz, memberships, centroids)
+    export_tables(consensus_npz, memberships, centroids)
     export_h5ad(prepared, consensus_npz, fuzzifier_json, selection_json, settings, h5ad)
     figure_validity(validity_tsv, selection_json, *validity_figure)
     figure_fuzzifier(fuzzifier_json, fuzzifier_curve, *fuzzifier_figure)
