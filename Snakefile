@@ -14,7 +14,6 @@ report: "workflow/report/workflow.rst"
 
 include: "workflow/rules/common.smk"
 include: "workflow/rules/prepare.smk"
-include: "workflow/rules/fuzzifier.smk"
 include: "workflow/rules/scan.smk"
 include: "workflow/rules/select.smk"
 include: "workflow/rules/export.smk"

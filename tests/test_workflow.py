@@ -289,6 +289,24 @@ def copy_with_setting(finished: Path, tmp_path: Path, section: str, key: str, va
     return copy
 
 
+@pytest.mark.parametrize(
+    ("deleted", "rule"),
+    [
+        ("figures/validity.pdf", "export"),
+        ("centroids.tsv", "export"),
+        ("figures/profiles.png", "core_genes"),
+        ("prepared/gene_report.tsv", "prepare"),
+    ],
+)
+def test_a_deleted_output_is_made_again(finished, tmp_path, deleted, rule):
+    copy = tmp_path / "copy"
+    shutil.copytree(finished, copy, symlinks=True)
+    (copy / "results" / RUN / deleted).unlink()
+    assert planned_rules(copy).get(rule) == 1
+    snakemake(copy)
+    assert (copy / "results" / RUN / deleted).is_file()
+
+
 def test_changing_thresholds_reruns_only_the_core_gene_rule(finished, tmp_path):
     copy = copy_with_setting(finished, tmp_path, "genesets", "thresholds", [0.6, 0.8])
     planned = planned_rules(copy)
@@ -302,13 +320,13 @@ def test_changing_thresholds_reruns_only_the_core_gene_rule(finished, tmp_path):
 def test_changing_the_number_of_starts_reruns_the_scan_not_the_preparation(finished, tmp_path):
     planned = planned_rules(copy_with_setting(finished, tmp_path, "scan", "n_starts", 6))
     assert planned.get("scan") == 5
-    assert "prepare" not in planned and "fuzzifier" not in planned and "demo_data" not in planned
+    assert "prepare" not in planned and "demo_data" not in planned
 
 
 def test_widening_the_scan_range_runs_only_the_new_cluster_numbers(finished, tmp_path):
     planned = planned_rules(copy_with_setting(finished, tmp_path, "scan", "max_clusters", 7))
     assert planned.get("scan") == 1
-    assert "prepare" not in planned and "fuzzifier" not in planned
+    assert "prepare" not in planned
     assert planned.get("select") == 1
 
 

@@ -5,6 +5,8 @@
 # clustered separately. Every result of a run lives under <results_dir>/<run>/.
 
 import copy
+import gc
+import inspect
 import math
 import os
 import re
@@ -14,8 +16,33 @@ import pandas as pd
 from snakemake.exceptions import WorkflowError
 from snakemake.utils import validate
 
+try:  # how Snakemake's own path helpers spare it a signature lookup per call
+    from snakemake.common import overwrite_function_params
+except ImportError:  # pragma: no cover - older or newer Snakemake without it
+    overwrite_function_params = None
+
 from gloam.errors import GloamError
 from gloam.io import read_sample_sheet
+
+
+# ---------------------------------------------------------------- planning speed
+#
+# Planning a large grid (200 datasets x 3 variants x 24 c is 17,000 jobs) is Snakemake's own
+# per-job work, so this file keeps per-job work small, which is what scripts/bench_dag.py
+# measures:
+# - Python's cyclic garbage collector rescans the growing job graph every 700 allocations by
+#   default; collecting less often cut the dry run of that grid by ~10 % (nothing here relies
+#   on prompt collection of reference cycles).
+# - Snakemake inspects the signature of every function it calls for a job, once per call;
+#   functions marked @job_function carry their parameters, as Snakemake's own path helpers do.
+gc.set_threshold(50_000, 20, 20)
+
+
+def job_function(function):
+    """Mark ``function`` as called by Snakemake per job (input, params, resources)."""
+    if overwrite_function_params is not None:
+        overwrite_function_params(function, inspect.signature(function).parameters)
+    return function
 
 
 validate(config, schema="../schemas/config.schema.yaml")
@@ -151,6 +178,7 @@ def get_run(wildcards):
         )
 
 
+@job_function
 def get_dataset_files(wildcards):
     dataset = DATASETS.loc[get_run(wildcards)["dataset"]]
     return {"matrix": dataset["matrix"], "samples": dataset["samples"]}
@@ -166,6 +194,7 @@ def cluster_numbers(run):
     return sorted(numbers)
 
 
+@job_function
 def get_scan_files(wildcards):
     run = get_run(wildcards)
     return [run_path(run["run"], f"scan/c{c}.npz") for c in cluster_numbers(run)]
@@ -175,10 +204,19 @@ FIGURES = ("profiles", "validity", "fuzzifier", "centroid_correlation")
 
 
 def run_outputs(run):
-    """Every file a finished run leaves behind (the targets of rule all)."""
+    """Every file a finished run leaves behind.
+
+    All of them are targets: Snakemake reruns a job for a missing output only when that
+    output is asked for, so a deleted file that no rule reads is made again only if listed.
+    """
     files = [
         run_path(run, name)
         for name in (
+            "prepared/zscores.tsv",
+            "prepared/gene_report.tsv",
+            "prepared/summary.tsv",
+            "fuzzifier.json",
+            "fuzzifier_curve.tsv",
             "memberships.tsv",
             "centroids.tsv",
             "validity.tsv",
@@ -202,6 +240,7 @@ def get_final_outputs(wildcards=None):
     return files
 
 
+@job_function
 def get_summary_inputs(wildcards):
     return {
         "fuzzifier": [run_path(run, "fuzzifier.json") for run in RUNS],
@@ -213,6 +252,7 @@ def get_summary_inputs(wildcards):
 # ---------------------------------------------------------------- parameters for scripts
 
 
+@job_function
 def get_preparation_params(wildcards):
     run = get_run(wildcards)
     return {
@@ -228,11 +268,23 @@ def get_preparation_params(wildcards):
 START_SETTINGS = ("n_starts", "tol", "max_iter", "init", "precision")
 
 
+@job_function
 def get_start_settings(wildcards):
     scan = get_run(wildcards)["scan"]
     return {key: scan[key] for key in START_SETTINGS}
 
 
+@job_function
+def get_fuzzifier_settings(wildcards):
+    return get_run(wildcards)["fuzzifier"]
+
+
+@job_function
+def get_selection_settings(wildcards):
+    return get_run(wildcards)["selection"]
+
+
+@job_function
 def get_run_settings(wildcards):
     """Everything recorded in gloam.h5ad about how a run was made."""
     run = get_run(wildcards)
@@ -286,6 +338,7 @@ def _estimate(rule, key, value):
 
 
 def mem_mb_for(rule, base_mb, mb_per_input_mb):
+    @job_function
     def mem_mb(wildcards, input, attempt):
         size = _input_mb(input)
         return attempt * _estimate(rule, "mem_mb", base_mb + mb_per_input_mb * size)
@@ -294,6 +347,7 @@ def mem_mb_for(rule, base_mb, mb_per_input_mb):
 
 
 def runtime_for(rule, base_min, min_per_input_mb):
+    @job_function
     def runtime(wildcards, input, attempt):
         size = _input_mb(input)
         return attempt * _estimate(rule, "runtime", base_min + min_per_input_mb * size)
@@ -301,6 +355,7 @@ def runtime_for(rule, base_min, min_per_input_mb):
     return runtime
 
 
+@job_function
 def scan_mem_mb(wildcards, input, attempt):
     # All starts are kept: memberships of n_starts x n_genes x c beside the data.
     scan = get_run(wildcards)["scan"]
@@ -309,6 +364,7 @@ def scan_mem_mb(wildcards, input, attempt):
     return attempt * _estimate("scan", "mem_mb", 500 + work)
 
 
+@job_function
 def select_mem_mb(wildcards, input, attempt):
     # Scan files are read one at a time and their size grows with c: the largest one, its
     # aligned copy and the consensus are in memory at once.
@@ -317,6 +373,7 @@ def select_mem_mb(wildcards, input, attempt):
     return attempt * _estimate("select", "mem_mb", 500 + 4 * largest)
 
 
+@job_function
 def scan_runtime(wildcards, input, attempt):
     scan = get_run(wildcards)["scan"]
     c = int(wildcards.c)

@@ -1,4 +1,8 @@
 # Demo data (generated only when a dataset points at it and it is missing) and preparation.
+# One job per run prepares the matrix and chooses the fuzzifier m from it: every scan job takes
+# the prepared matrix and the choice (fuzzifier.json) as input files (no checkpoint). The m
+# check clusters shuffled data and gets 2 threads; changing only the fuzzifier settings
+# repeats the preparation, which costs seconds, while the scans rerun in any case.
 
 
 rule demo_data:
@@ -40,16 +44,25 @@ rule prepare:
             category="{run}",
             subcategory="1 preparation",
         ),
+        fuzzifier=run_path("{run}", "fuzzifier.json"),
+        fuzzifier_curve=report(
+            run_path("{run}", "fuzzifier_curve.tsv"),
+            caption="../report/fuzzifier_curve.rst",
+            category="{run}",
+            subcategory="2 fuzzifier",
+        ),
     params:
         settings=get_preparation_params,
+        fuzzifier=get_fuzzifier_settings,
+        seed=config["seed"],
     log:
         "logs/{run}/prepare.log",
     benchmark:
         "benchmarks/{run}/prepare.tsv"
-    threads: get_threads("prepare", 1)
+    threads: get_threads("prepare", 2)
     resources:
-        mem_mb=mem_mb_for("prepare", 500, 12),
-        runtime=runtime_for("prepare", 5, 0.05),
+        mem_mb=mem_mb_for("prepare", 1000, 12),
+        runtime=runtime_for("prepare", 10, 0.1),
     conda:
         "../envs/gloam.yaml"
     script:

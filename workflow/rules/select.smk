@@ -16,7 +16,7 @@ rule select:
         selection=run_path("{run}", "selection.json"),
         consensus=run_path("{run}", "consensus.npz"),
     params:
-        settings=lambda wildcards: get_run(wildcards)["selection"],
+        settings=get_selection_settings,
     log:
         "logs/{run}/select.log",
     benchmark:
