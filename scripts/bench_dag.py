@@ -187,6 +187,11 @@ def dry_runs(args: argparse.Namespace, root: Path) -> None:
     strict_here = STRICT_RATIO * reference
     print(f"target on this machine              {target_here:10.1f}            "
           f"({PLANNING_RATIO:.2f} x {reference:.1f} s; strict {strict_here:.1f} s)")  # fmt: skip
+    projected = TARGET_PLUGIN_STARTUP_SECONDS + (
+        TARGET_REFERENCE_SECONDS - TARGET_PLUGIN_STARTUP_SECONDS
+    ) * (gloam / reference)
+    print(f"on the target's reference machine   {projected:10.1f}            (10 s start-up "
+          f"+ 13 s x the ratio; target < {TARGET_SECONDS:.0f} s)")  # fmt: skip
     print(f"per job                             {1e3 * gloam / n_jobs:10.2f} ms")
     if args.slurm_python:
         profile = root / "slurm-profile"

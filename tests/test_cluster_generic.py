@@ -20,9 +20,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
-import yaml
-
-from gloam.demo import write_demo
+from cluster_workdirs import planned_jobs, write_workdir
 
 pytest.importorskip(
     "snakemake_executor_plugin_cluster_generic",
@@ -62,17 +60,6 @@ print(job.pid)
 pytestmark = pytest.mark.slow
 
 
-def write_workdir(directory: Path) -> Path:
-    directory.mkdir(parents=True)
-    rows = ["name\tmatrix\tsamples\tvalue_type"]
-    for name, seed in DATASETS.items():
-        write_demo(directory / "data" / name, seed=seed, n_genes=300, n_replicates=2)
-        rows.append(f"{name}\tdata/{name}/counts.tsv\tdata/{name}/samples.tsv\tcounts")
-    (directory / "datasets.tsv").write_text("\n".join(rows) + "\n", encoding="utf-8")
-    (directory / "config.yaml").write_text(yaml.safe_dump(CONFIG), encoding="utf-8")
-    return directory
-
-
 def snakemake(directory: Path, *args: str) -> subprocess.CompletedProcess:
     command = [
         sys.executable, "-m", "snakemake", "--snakefile", str(SNAKEFILE),
@@ -85,7 +72,7 @@ def snakemake(directory: Path, *args: str) -> subprocess.CompletedProcess:
 
 @pytest.fixture(scope="module")
 def cluster_run(tmp_path_factory) -> tuple[Path, list[dict], str]:
-    directory = write_workdir(tmp_path_factory.mktemp("generic") / "run")
+    directory = write_workdir(tmp_path_factory.mktemp("generic") / "run", DATASETS, CONFIG)
     scheduler = directory / "scheduler"
     scheduler.mkdir()
     (scheduler / "submit.py").write_text(SUBMIT, encoding="utf-8")
@@ -102,7 +89,7 @@ def cluster_run(tmp_path_factory) -> tuple[Path, list[dict], str]:
 
 @pytest.fixture(scope="module")
 def local_run(tmp_path_factory) -> Path:
-    directory = write_workdir(tmp_path_factory.mktemp("local") / "run")
+    directory = write_workdir(tmp_path_factory.mktemp("local") / "run", DATASETS, CONFIG)
     snakemake(directory, "--cores", "2")
     return directory
 
@@ -113,12 +100,6 @@ def target_jobs(jobscript: str) -> list[tuple[str, str]]:
     assert match, f"no --target-jobs in the job script:\n{jobscript}"
     jobs = re.findall(r"'([^':]+):([^']*)'", match.group(1))
     return [(rule, wildcards) for rule, wildcards in jobs]
-
-
-def planned_jobs(output: str) -> dict[str, int]:
-    """Rule -> job count from Snakemake's 'Job stats' table."""
-    table = output.split("Job stats:", 1)[1].split("total", 1)[0]
-    return {rule: int(n) for rule, n in re.findall(r"^(\w+)\s+(\d+)$", table, re.MULTILINE)}
 
 
 def test_every_job_is_submitted_once_and_a_runs_finish_is_one_submission(cluster_run):

@@ -31,8 +31,7 @@ import pandas as pd
 import pytest
 import slurm_testbed
 import yaml
-
-from gloam.demo import write_demo
+from cluster_workdirs import planned_jobs, write_workdir
 
 REPO = Path(__file__).resolve().parents[1]
 SNAKEFILE = REPO / "Snakefile"
@@ -79,17 +78,6 @@ def plugin_python(cluster) -> str:
         return str(slurm_testbed.ensure_plugin_venv())
     except slurm_testbed.TestbedUnavailable as reason:
         pytest.skip(str(reason))
-
-
-def write_workdir(directory: Path) -> Path:
-    directory.mkdir(parents=True)
-    rows = ["name\tmatrix\tsamples\tvalue_type"]
-    for name, seed in DATASETS.items():
-        write_demo(directory / "data" / name, seed=seed, n_genes=300, n_replicates=2)
-        rows.append(f"{name}\tdata/{name}/counts.tsv\tdata/{name}/samples.tsv\tcounts")
-    (directory / "datasets.tsv").write_text("\n".join(rows) + "\n", encoding="utf-8")
-    (directory / "config.yaml").write_text(yaml.safe_dump(CONFIG), encoding="utf-8")
-    return directory
 
 
 def snakemake_args(directory: Path, profile: Path) -> list[str]:
@@ -145,7 +133,7 @@ def _settled(tb: slurm_testbed.Testbed, run_id: str) -> list[dict[str, str]]:
 @pytest.fixture(scope="module")
 def slurm_run(cluster, plugin_python, tmp_path_factory) -> SlurmRun:
     tb = cluster
-    directory = write_workdir(tmp_path_factory.mktemp("slurm") / "run")
+    directory = write_workdir(tmp_path_factory.mktemp("slurm") / "run", DATASETS, CONFIG)
     profile = site_profile(tb, directory)
     command = [
         plugin_python, *snakemake_args(directory, profile),
@@ -203,7 +191,7 @@ def slurm_run(cluster, plugin_python, tmp_path_factory) -> SlurmRun:
 
 @pytest.fixture(scope="module")
 def local_run(tmp_path_factory) -> Path:
-    directory = write_workdir(tmp_path_factory.mktemp("local") / "run")
+    directory = write_workdir(tmp_path_factory.mktemp("local") / "run", DATASETS, CONFIG)
     result = subprocess.run(
         [sys.executable, *snakemake_args(directory, LOCAL_PROFILE), "--cores", "2"],
         capture_output=True, text=True, timeout=RUN_TIMEOUT_S,
@@ -214,12 +202,6 @@ def local_run(tmp_path_factory) -> Path:
 
 
 # ------------------------------------------------------------------------------ helpers
-
-
-def planned_jobs(output: str) -> dict[str, int]:
-    """Rule -> job count from Snakemake's 'Job stats' table."""
-    table = output.split("Job stats:", 1)[1].split("total", 1)[0]
-    return {rule: int(n) for rule, n in re.findall(r"^(\w+)\s+(\d+)$", table, re.MULTILINE)}
 
 
 def declared_resources(output: str) -> dict[tuple[str, str], tuple[int, int]]:
