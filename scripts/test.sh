@@ -7,4 +7,5 @@ python3 -m venv .venv
 .venv/bin/python -m pip install --quiet --upgrade pip
 .venv/bin/python -m pip install --quiet -e '.[test,fast]'
 .venv/bin/python -m ruff check src tests scripts
+.venv/bin/python -m ruff format --check src tests scripts
 .venv/bin/python -m pytest "$@"

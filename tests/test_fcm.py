@@ -78,9 +78,7 @@ def test_each_start_equals_a_single_start_run_from_the_same_memberships():
     starts = random_memberships(4, 300, 4, rng=rng)
     together = fuzzy_cmeans(X, 4, 1.7, initial_memberships=starts, tol=1e-6, max_iter=400)
     for index in range(4):
-        alone = fuzzy_cmeans(
-            X, 4, 1.7, initial_memberships=starts[index], tol=1e-6, max_iter=400
-        )
+        alone = fuzzy_cmeans(X, 4, 1.7, initial_memberships=starts[index], tol=1e-6, max_iter=400)
         assert alone.n_iter[0] == together.n_iter[index]
         assert_allclose(alone.memberships[0], together.memberships[index], rtol=0, atol=1e-12)
         assert_allclose(alone.objectives[0], together.objectives[index], rtol=1e-12)
@@ -110,8 +108,7 @@ def test_same_seed_same_result_and_different_seed_different_start():
 
 def test_kmeanspp_start_recovers_separated_blobs():
     """Reference: scikit-learn ``make_blobs`` truth, adjusted Rand index 1."""
-    X, truth = make_blobs(n_samples=600, centers=4, n_features=5, cluster_std=0.5,
-                          random_state=0)
+    X, truth = make_blobs(n_samples=600, centers=4, n_features=5, cluster_std=0.5, random_state=0)
     result = fuzzy_cmeans(X, 4, 1.5, n_starts=4, init="kmeans++", rng=0)
     assert adjusted_rand_score(truth, result.best().memberships.argmax(axis=1)) == 1.0
     seeds = kmeanspp_centroids(X, 4, 3, rng=np.random.default_rng(0))
@@ -138,8 +135,7 @@ def test_predicted_memberships_of_clustered_rows_equal_the_fit():
     predicted = predict_memberships(X, part.centroids, 1.9)
     assert_allclose(predicted, part.memberships, rtol=0, atol=1e-12)
     new_rows = rng.normal(size=(50, 6))
-    assert_allclose(predict_memberships(new_rows, part.centroids, 1.9).sum(axis=1), 1.0,
-                    atol=1e-12)
+    assert_allclose(predict_memberships(new_rows, part.centroids, 1.9).sum(axis=1), 1.0, atol=1e-12)
 
 
 def test_row_on_a_centroid_gets_membership_one_and_no_nan():
@@ -252,8 +248,7 @@ def test_relabelling_the_start_relabels_the_result(shape, seed):
     U0 = _random_start(n, c, seed)
     permutation = np.random.default_rng(seed).permutation(c)
     plain = fuzzy_cmeans(X, c, 2.0, initial_memberships=U0, tol=0, max_iter=30)
-    permuted = fuzzy_cmeans(X, c, 2.0, initial_memberships=U0[:, permutation], tol=0,
-                            max_iter=30)
+    permuted = fuzzy_cmeans(X, c, 2.0, initial_memberships=U0[:, permutation], tol=0, max_iter=30)
     assert_allclose(permuted.memberships[0], plain.memberships[0][:, permutation], atol=1e-10)
     assert_allclose(permuted.centroids[0], plain.centroids[0][permutation], atol=1e-10)
 

@@ -26,8 +26,10 @@ from gloam.fuzzifier import (
 def _published_formula(N: float, D: float) -> float:
     # Schwämmle & Jensen (2010), the fitted expression for m(N, D), typed here from memory
     # independently of the implementation.
-    return 1 + (1418 / N + 22.05) * D ** (-2) + (12.33 / N + 0.243) * D ** (
-        -0.0406 * math.log(N) - 0.1134
+    return (
+        1
+        + (1418 / N + 22.05) * D ** (-2)
+        + (12.33 / N + 0.243) * D ** (-0.0406 * math.log(N) - 0.1134)
     )
 
 

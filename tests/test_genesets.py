@@ -129,9 +129,7 @@ def test_written_files_match_the_manifest_and_the_documented_layout(tmp_path):
     assert list(ranked.columns) == ["gene", "membership"]
     assert sorted(ranked["gene"]) == sorted(table.index)
     assert np.all(np.diff(ranked["membership"].to_numpy()) <= 0)
-    np.testing.assert_allclose(
-        ranked["membership"], table.loc[ranked["gene"], "C2"], rtol=1e-5
-    )
+    np.testing.assert_allclose(ranked["membership"], table.loc[ranked["gene"], "C2"], rtol=1e-5)
 
 
 def test_gmt_lines_are_valid(tmp_path):

@@ -86,8 +86,10 @@ def test_partition_coefficient_matches_scikit_fuzzy():
 def test_partition_entropy_matches_the_formula_on_a_small_example():
     """Bezdek (1981): PE = -(1/n) sum u ln u, with 0 ln 0 = 0, written out by hand."""
     U = np.array([[0.5, 0.5, 0.0], [0.2, 0.3, 0.5]])
-    expected = -(2 * 0.5 * math.log(0.5) + 0.2 * math.log(0.2) + 0.3 * math.log(0.3)
-                 + 0.5 * math.log(0.5)) / 2
+    expected = (
+        -(2 * 0.5 * math.log(0.5) + 0.2 * math.log(0.2) + 0.3 * math.log(0.3) + 0.5 * math.log(0.5))
+        / 2
+    )
     assert partition_entropy(U) == pytest.approx(expected, rel=1e-14)
 
 
@@ -169,8 +171,9 @@ def test_xie_beni_is_infinite_when_two_centroids_coincide():
     assert xie_beni(X, V, U, 2.0) == math.inf
 
 
-@given(arrays(np.float64, st.tuples(st.integers(2, 6), st.integers(1, 4)),
-              elements=st.floats(-10, 10)))
+@given(
+    arrays(np.float64, st.tuples(st.integers(2, 6), st.integers(1, 4)), elements=st.floats(-10, 10))
+)
 def test_min_centroid_distance_is_the_smallest_pairwise_squared_distance(V):
     """Schwämmle & Jensen (2010): min over pairs of squared Euclidean distance (loop reference)."""
     c = V.shape[0]
@@ -242,7 +245,11 @@ def test_recommendation_picks_three_for_three_clear_blobs(random_state):
     """scikit-learn make_blobs (PyPI): three well-separated Gaussian groups; partitions from
     scikit-fuzzy's cmeans; the rule must recommend c = 3 out of 2..7."""
     X, _ = make_blobs(
-        n_samples=300, centers=3, n_features=5, cluster_std=1.0, center_box=(-15, 15),
+        n_samples=300,
+        centers=3,
+        n_features=5,
+        cluster_std=1.0,
+        center_box=(-15, 15),
         random_state=random_state,
     )
     table = validity_table(X, _skfuzzy_partitions(X, range(2, 8)))
@@ -274,8 +281,9 @@ def test_recommendation_takes_the_c_before_the_sharpest_fall():
 def test_recommendation_prefers_a_later_sharper_fall_to_an_earlier_milder_one():
     # An extra cluster can halve the distance early (2 -> 3 here, ratio 0.45) and the real
     # collapse come later (5 -> 6, ratio 0.2): the sharper fall wins, c = 5.
-    table = _table([2, 3, 4, 5, 6, 7], [0.3, 0.5, 0.4, 0.45, 1.7, 1.3],
-                   [13.0, 5.9, 5.8, 5.0, 1.0, 1.1])
+    table = _table(
+        [2, 3, 4, 5, 6, 7], [0.3, 0.5, 0.4, 0.45, 1.7, 1.3], [13.0, 5.9, 5.8, 5.0, 1.0, 1.1]
+    )
     assert recommend_n_clusters(table) == 5
 
 
@@ -325,7 +333,11 @@ def _gloam_scan(X, cs, n_starts=5):
 def test_recommendation_on_gloam_partitions_picks_three_for_three_clear_blobs(random_state):
     """scikit-learn make_blobs (PyPI), three well-separated groups, gloam's engine: c = 3."""
     X, _ = make_blobs(
-        n_samples=300, centers=3, n_features=5, cluster_std=1.0, center_box=(-15, 15),
+        n_samples=300,
+        centers=3,
+        n_features=5,
+        cluster_std=1.0,
+        center_box=(-15, 15),
         random_state=random_state,
     )
     results = _gloam_scan(X, range(2, 8))

@@ -315,8 +315,10 @@ def cluster_names(n_clusters: int) -> list[str]:
     GloamError
         If ``n_clusters`` is not a positive integer.
     """
-    if isinstance(n_clusters, bool) or not isinstance(n_clusters, int | np.integer) or (
-        n_clusters < 1
+    if (
+        isinstance(n_clusters, bool)
+        or not isinstance(n_clusters, int | np.integer)
+        or (n_clusters < 1)
     ):
         raise GloamError(f"number of clusters must be a positive integer; got {n_clusters!r}")
     return [f"C{k}" for k in range(1, int(n_clusters) + 1)]

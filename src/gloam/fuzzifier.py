@@ -186,8 +186,13 @@ def randomised_structure_curve(
             # Near the collapse point convergence is slow; the curve is still informative.
             warnings.simplefilter("ignore", ConvergenceWarning)
             result = fuzzy_cmeans(
-                shuffled, n_clusters, float(m), n_starts=n_starts, tol=tol,
-                max_iter=max_iter, rng=rng,
+                shuffled,
+                n_clusters,
+                float(m),
+                n_starts=n_starts,
+                tol=tol,
+                max_iter=max_iter,
+                rng=rng,
             )
         best = result.best()
         mean_max = float(best.memberships.max(axis=1).mean())
@@ -254,8 +259,10 @@ def choose_fuzzifier(
             raise GloamError(
                 f"fuzzifier must be 'auto', 'randomised' or a number > 1; got {setting!r}"
             )
-    elif isinstance(setting, bool) or not isinstance(setting, int | float) or not (
-        math.isfinite(setting) and setting > 1
+    elif (
+        isinstance(setting, bool)
+        or not isinstance(setting, int | float)
+        or not (math.isfinite(setting) and setting > 1)
     ):
         raise GloamError(f"fuzzifier must be 'auto', 'randomised' or a number > 1; got {setting!r}")
     c_check = int(min(n_clusters_check, data.shape[0] - 1))
