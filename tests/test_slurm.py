@@ -42,7 +42,10 @@ CONFIG = {
     "datasets": "datasets.tsv",
     "seed": 7,
     "preparation": {"min_sd": 0.3},
-    "scan": {"min_clusters": 2, "max_clusters": 4, "n_starts": 4},
+    # Ten scan jobs, two at a time on a 2-CPU node: the interruption below has a window of
+    # several scan rounds (sacct reports states some seconds late; with three scans per
+    # dataset the run could finish before a poll saw one running).
+    "scan": {"min_clusters": 2, "max_clusters": 6, "n_starts": 4},
     "genesets": {"thresholds": [0.5]},
 }
 # The interruption comes once this many jobs have finished and while another one runs: after
