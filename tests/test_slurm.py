@@ -42,10 +42,10 @@ CONFIG = {
     "datasets": "datasets.tsv",
     "seed": 7,
     "preparation": {"min_sd": 0.3},
-    # Ten scan jobs, two at a time on a 2-CPU node: the interruption below has a window of
-    # several scan rounds (sacct reports states some seconds late; with three scans per
-    # dataset the run could finish before a poll saw one running).
-    "scan": {"min_clusters": 2, "max_clusters": 6, "n_starts": 4},
+    # Ten scan jobs of a few seconds each (tol=0: every start runs max_iter iterations), two
+    # at a time on a 2-CPU node, so the interruption below has a wide window to find one
+    # running; with three quick scans per dataset a run once ended between two polls.
+    "scan": {"min_clusters": 2, "max_clusters": 6, "n_starts": 40, "tol": 0, "max_iter": 500},
     "genesets": {"thresholds": [0.5]},
 }
 # The interruption comes once this many jobs have finished and while another one runs: after
@@ -164,6 +164,9 @@ def slurm_run(cluster, plugin_python, tmp_path_factory) -> SlurmRun:
                     run_id = found.group(1) if found else None
                     continue
                 states = [r["State"] for r in _records_of(tb, run_id)]
+                # What each poll saw, for diagnosing a run that ended before its interruption.
+                with open(directory / "polls.log", "a", encoding="utf-8") as polls:
+                    polls.write(f"{time.monotonic():.1f} {sorted(states)}\n")
                 if states.count("COMPLETED") >= INTERRUPT_AFTER_COMPLETED and "RUNNING" in states:
                     proc.send_signal(signal.SIGINT)
                     break
