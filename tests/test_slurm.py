@@ -133,6 +133,13 @@ def _settled(tb: slurm_testbed.Testbed, run_id: str) -> list[dict[str, str]]:
         time.sleep(1)
 
 
+def _sigint_default() -> None:
+    """In the child: SIGINT back to its default. A test run started in the background of a
+    non-interactive shell inherits SIGINT ignored, and Snakemake would then never see the
+    interruption."""
+    signal.signal(signal.SIGINT, signal.SIG_DFL)
+
+
 @pytest.fixture(scope="module")
 def slurm_run(cluster, plugin_python, tmp_path_factory) -> SlurmRun:
     tb = cluster
@@ -153,7 +160,9 @@ def slurm_run(cluster, plugin_python, tmp_path_factory) -> SlurmRun:
     # First invocation: interrupted once some jobs have finished.
     log1 = directory / "snakemake-1.log"
     with open(log1, "w", encoding="utf-8") as out:
-        proc = subprocess.Popen(command, env=env, stdout=out, stderr=subprocess.STDOUT)
+        proc = subprocess.Popen(
+            command, env=env, stdout=out, stderr=subprocess.STDOUT, preexec_fn=_sigint_default
+        )
         try:
             run_id = None
             deadline = time.monotonic() + RUN_TIMEOUT_S
