@@ -2,13 +2,14 @@
 then choose the fuzzifier m for it and record the randomised-data curve."""
 
 from gloam.errors import exit_on_user_error
-from gloam.stages import rule_environment, run_fuzzifier, run_prepare
+from gloam.stages import rule_environment, run_prepare, write_fuzzifier_choice
 
 job = snakemake  # noqa: F821 -- injected by Snakemake's script directive
 
 
 def prepare_and_choose_m() -> None:
-    run_prepare(
+    # m is chosen from the z-scores just prepared, not from the file read back.
+    zscores = run_prepare(
         job.input.matrix,
         job.input.samples,
         job.params.settings,
@@ -17,8 +18,8 @@ def prepare_and_choose_m() -> None:
         gene_report=job.output.gene_report,
         summary=job.output.summary,
     )
-    run_fuzzifier(
-        job.output.h5ad,
+    write_fuzzifier_choice(
+        zscores,
         job.params.fuzzifier,
         job.params.seed,
         job.output.fuzzifier,

@@ -56,6 +56,7 @@ __all__ = [
     "run_demo",
     "run_prepare",
     "run_fuzzifier",
+    "write_fuzzifier_choice",
     "run_scan",
     "read_scan",
     "run_select",
@@ -199,11 +200,12 @@ def run_prepare(
     zscores: PathLike,
     gene_report: PathLike,
     summary: PathLike,
-) -> None:
+) -> pd.DataFrame:
     """Read a matrix and its sample sheet, prepare them and write the four prepared files.
 
     ``settings`` holds the preparation settings (see :class:`gloam.prepare.PrepareSettings`)
-    plus ``layer`` (the ``.h5ad`` layer to read, or None).
+    plus ``layer`` (the ``.h5ad`` layer to read, or None). Returns the z-scores written
+    (genes x prepared columns), so a caller can go on without reading them back.
     """
     from gloam.io import read_matrix, read_sample_sheet
     from gloam.prepare import prepare_expression, settings_from_mapping, write_prepared
@@ -218,6 +220,7 @@ def run_prepare(
     write_prepared(
         prepared, h5ad_path=h5ad, tsv_path=zscores, report_path=gene_report, summary_path=summary
     )
+    return prepared.zscores
 
 
 # ------------------------------------------------------------------ fuzzifier and scan
@@ -236,9 +239,20 @@ def run_fuzzifier(
     ``n_clusters_check``.  The curve TSV has the columns of
     :data:`gloam.fuzzifier.CURVE_COLUMNS`.
     """
+    zscores, _columns = _read_prepared(prepared)
+    write_fuzzifier_choice(zscores, settings, seed, out_json, out_curve)
+
+
+def write_fuzzifier_choice(
+    zscores: pd.DataFrame,
+    settings: Mapping[str, Any],
+    seed: int,
+    out_json: PathLike,
+    out_curve: PathLike,
+) -> None:
+    """:func:`run_fuzzifier` for z-scores already in memory (genes x prepared columns)."""
     from gloam.fuzzifier import choose_fuzzifier
 
-    zscores, _columns = _read_prepared(prepared)
     choice = choose_fuzzifier(
         zscores.to_numpy(),
         settings["m"],
