@@ -1,8 +1,14 @@
 """Snakemake rule ``prepare``: validate, normalise, filter and standardise one run's matrix,
-then choose the fuzzifier m for it and record the randomised-data curve."""
+then choose the fuzzifier m for it, record the randomised-data curve, and write the scan
+jobs' input (the matrix with its m)."""
 
 from gloam.errors import exit_on_user_error
-from gloam.stages import rule_environment, run_prepare, write_fuzzifier_choice
+from gloam.stages import (
+    rule_environment,
+    run_prepare,
+    write_fuzzifier_choice,
+    write_scan_input,
+)
 
 job = snakemake  # noqa: F821 -- injected by Snakemake's script directive
 
@@ -18,13 +24,14 @@ def prepare_and_choose_m() -> None:
         gene_report=job.output.gene_report,
         summary=job.output.summary,
     )
-    write_fuzzifier_choice(
+    m = write_fuzzifier_choice(
         zscores,
         job.params.fuzzifier,
         job.params.seed,
         job.output.fuzzifier,
         job.output.fuzzifier_curve,
     )
+    write_scan_input(zscores, m, job.output.scan_input)
 
 
 with rule_environment(job.log[0], job.threads):

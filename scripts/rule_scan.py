@@ -8,9 +8,8 @@ job = snakemake  # noqa: F821 -- injected by Snakemake's script directive
 with rule_environment(job.log[0], job.threads):
     exit_on_user_error(
         lambda: run_scan(
-            job.input.prepared,
+            job.input.scan_input,
             int(job.wildcards.c),
-            job.input.fuzzifier,
             job.params.settings,
             job.params.seed,
             job.output.scan,

@@ -8,6 +8,7 @@ main run happens once per module; tests that change things work on a copy of it.
 from __future__ import annotations
 
 import contextlib
+import json
 import os
 import re
 import shutil
@@ -115,6 +116,7 @@ def test_every_declared_output_exists(finished):
         "prepared/zscores.tsv",
         "prepared/gene_report.tsv",
         "prepared/summary.tsv",
+        "prepared/scan_input.npz",
         "fuzzifier.json",
         "fuzzifier_curve.tsv",
         "validity.tsv",
@@ -128,6 +130,20 @@ def test_every_declared_output_exists(finished):
     for c in range(2, 7):
         assert (out / "scan" / f"c{c}.npz").is_file()
     assert (finished / "results" / "summary.tsv").is_file()
+
+
+def test_scan_input_is_the_prepared_matrix_with_the_chosen_m(finished):
+    """What the scan jobs read equals the prepared matrix (prepared.h5ad, genes x columns) and
+    fuzzifier.json's m, and the scans used that m."""
+    prepared = anndata.read_h5ad(results(finished) / "prepared/prepared.h5ad")
+    chosen = json.loads((results(finished) / "fuzzifier.json").read_text(encoding="utf-8"))
+    with np.load(results(finished) / "prepared/scan_input.npz") as scan_input:
+        assert scan_input["genes"].tolist() == prepared.var_names.tolist()
+        assert scan_input["columns"].tolist() == prepared.obs_names.tolist()
+        np.testing.assert_array_equal(scan_input["zscores"], np.asarray(prepared.X).T)
+        assert float(scan_input["m"]) == chosen["m"]
+    with np.load(results(finished) / "scan" / "c4.npz") as scan:
+        assert float(scan["m"]) == chosen["m"]
 
 
 def test_scan_files_keep_every_start(finished):

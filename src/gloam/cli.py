@@ -223,6 +223,7 @@ def _run_cluster(args: argparse.Namespace) -> int:
         args.seed,
         out / "fuzzifier.json",
         out / "fuzzifier_curve.tsv",
+        out / "scan_input.npz",
     )
     scan_settings = {
         "n_starts": args.n_starts,
@@ -233,7 +234,7 @@ def _run_cluster(args: argparse.Namespace) -> int:
     }
     scans = [out / "scan" / f"c{c}.npz" for c in numbers]
     for c, path in zip(numbers, scans, strict=True):
-        stages.run_scan(args.prepared, c, out / "fuzzifier.json", scan_settings, args.seed, path)
+        stages.run_scan(out / "scan_input.npz", c, scan_settings, args.seed, path)
     stages.run_select(
         args.prepared,
         scans,

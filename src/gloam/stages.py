@@ -14,6 +14,11 @@ Files between stages
 ``fuzzifier.json`` (:func:`run_fuzzifier`)
     ``m``, ``method``, ``formula_m``, ``setting``, ``n_clusters_check``, ``n_genes``,
     ``n_columns``; the randomised-data curve goes to its own TSV.
+``prepared/scan_input.npz`` (:func:`write_scan_input`)
+    What every scan job reads, in one file: ``zscores`` (n_genes, n_columns, float64, the
+    prepared matrix's values), ``genes``, ``columns`` and ``m`` (the fuzzifier chosen for
+    them). One input per scan job instead of two keeps the plan of a large grid small, and
+    reading it needs NumPy only.
 ``selection.json`` (:func:`run_select`)
     ``n_clusters`` (used), ``method`` (``auto`` or ``fixed``), ``recommended``, ``reason``,
     ``scanned``.
@@ -57,6 +62,8 @@ __all__ = [
     "run_prepare",
     "run_fuzzifier",
     "write_fuzzifier_choice",
+    "write_scan_input",
+    "read_scan_input",
     "run_scan",
     "read_scan",
     "run_select",
@@ -232,15 +239,18 @@ def run_fuzzifier(
     seed: int,
     out_json: PathLike,
     out_curve: PathLike,
+    out_scan_input: PathLike,
 ) -> None:
-    """Choose the fuzzifier m for a prepared matrix; write the choice and its curve.
+    """Choose the fuzzifier m for a prepared matrix; write the choice, its curve and the
+    scan input (the matrix with that m, see :func:`write_scan_input`).
 
     ``settings``: ``m`` (``"auto"``, ``"randomised"`` or a number > 1) and
     ``n_clusters_check``.  The curve TSV has the columns of
     :data:`gloam.fuzzifier.CURVE_COLUMNS`.
     """
     zscores, _columns = _read_prepared(prepared)
-    write_fuzzifier_choice(zscores, settings, seed, out_json, out_curve)
+    m = write_fuzzifier_choice(zscores, settings, seed, out_json, out_curve)
+    write_scan_input(zscores, m, out_scan_input)
 
 
 def write_fuzzifier_choice(
@@ -249,8 +259,9 @@ def write_fuzzifier_choice(
     seed: int,
     out_json: PathLike,
     out_curve: PathLike,
-) -> None:
-    """:func:`run_fuzzifier` for z-scores already in memory (genes x prepared columns)."""
+) -> float:
+    """Choose m for z-scores already in memory (genes x prepared columns); write the choice
+    and its curve as :func:`run_fuzzifier` does, and return m."""
     from gloam.fuzzifier import choose_fuzzifier
 
     choice = choose_fuzzifier(
@@ -272,25 +283,54 @@ def write_fuzzifier_choice(
         },
         out_json,
     )
+    return float(choice.m)
+
+
+def write_scan_input(zscores: pd.DataFrame, m: float, out_npz: PathLike) -> None:
+    """Write what a scan job reads: the z-scores (genes x prepared columns) and the m chosen
+    for them (layout in the module notes)."""
+    _write_npz(
+        out_npz,
+        zscores=zscores.to_numpy(dtype=np.float64),
+        genes=zscores.index.to_numpy(dtype=str),
+        columns=zscores.columns.to_numpy(dtype=str),
+        m=np.float64(m),
+    )
+
+
+def read_scan_input(path: PathLike) -> tuple[pd.DataFrame, float]:
+    """The z-scores (index ``gene``, one column per prepared column) and m of a scan input."""
+    data = _load_npz(path, "scan input")
+    missing = {"zscores", "genes", "columns", "m"} - set(data)
+    if missing:
+        raise GloamError(
+            f"scan input {str(path)!r} lacks {sorted(missing)}; it was not written by gloam's "
+            "preparation step: rerun that step"
+        )
+    zscores = pd.DataFrame(
+        data["zscores"],
+        index=pd.Index(data["genes"], name="gene"),
+        columns=pd.Index(data["columns"], name="column"),
+    )
+    return zscores, float(data["m"])
 
 
 def run_scan(
-    prepared: PathLike,
+    scan_input: PathLike,
     n_clusters: int,
-    fuzzifier_json: PathLike,
     settings: Mapping[str, Any],
     seed: int,
     out_npz: PathLike,
 ) -> None:
     """Run every random start of fuzzy c-means for one c; keep all starts in ``out_npz``.
 
-    ``settings``: ``n_starts``, ``tol``, ``max_iter``, ``init``, ``precision`` (the scan
-    section of the config; other keys are ignored).
+    ``scan_input`` is the file of :func:`write_scan_input` (z-scores and m). ``settings``:
+    ``n_starts``, ``tol``, ``max_iter``, ``init``, ``precision`` (the scan section of the
+    config; other keys are ignored).
     """
     from gloam.fcm import fuzzy_cmeans
 
-    zscores, _columns = _read_prepared(prepared)
-    m = float(_read_json(fuzzifier_json, "fuzzifier choice")["m"])
+    zscores, m = read_scan_input(scan_input)
     result = fuzzy_cmeans(
         zscores.to_numpy(),
         int(n_clusters),

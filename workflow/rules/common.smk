@@ -35,6 +35,10 @@ from gloam.io import read_sample_sheet
 #   on prompt collection of reference cycles).
 # - Snakemake inspects the signature of every function it calls for a job, once per call;
 #   functions marked @job_function carry their parameters, as Snakemake's own path helpers do.
+#   Snakemake evaluates every resource of every job through one method of its own (a
+#   signature lookup per resource and job, ~7 % of the dry run of that grid); that method
+#   gets its parameters attached the same way, computed from its own signature, so what
+#   Snakemake reads is what it would have computed.
 gc.set_threshold(50_000, 20, 20)
 
 
@@ -43,6 +47,22 @@ def job_function(function):
     if overwrite_function_params is not None:
         overwrite_function_params(function, inspect.signature(function).parameters)
     return function
+
+
+def _attach_resource_evaluator_params():
+    try:
+        from snakemake.resources import Resource
+    except ImportError:  # pragma: no cover - a Snakemake without it
+        return
+    evaluate = getattr(Resource, "evaluate", None)
+    if overwrite_function_params is None or not inspect.isfunction(evaluate):
+        return
+    # Snakemake calls it bound to a resource: its parameters without "self".
+    parameters = list(inspect.signature(evaluate).parameters.items())[1:]
+    overwrite_function_params(evaluate, dict(parameters))
+
+
+_attach_resource_evaluator_params()
 
 
 validate(config, schema="../schemas/config.schema.yaml")
@@ -357,10 +377,12 @@ def runtime_for(rule, base_min, min_per_input_mb):
 
 @job_function
 def scan_mem_mb(wildcards, input, attempt):
-    # All starts are kept: memberships of n_starts x n_genes x c beside the data.
+    # All starts are kept: memberships of n_starts x n_genes x c beside the data. The input
+    # (scan_input.npz) holds >= 40 bytes per gene (values and ID), and a scan's memory grew by
+    # up to 0.32 MB per input MB and per start x c (measured: 20,000 genes, 3-24 columns).
     scan = get_run(wildcards)["scan"]
     c = int(wildcards.c)
-    work = _input_mb(input) * (6 + scan["n_starts"] * c / 8)
+    work = _input_mb(input) * (6 + scan["n_starts"] * c / 2)
     return attempt * _estimate("scan", "mem_mb", 500 + work)
 
 

@@ -1,6 +1,6 @@
 # Demo data (generated only when a dataset points at it and it is missing) and preparation.
 # One job per run prepares the matrix and chooses the fuzzifier m from it: every scan job takes
-# the prepared matrix and the choice (fuzzifier.json) as input files (no checkpoint). The m
+# the matrix with that m (prepared/scan_input.npz) as its input file (no checkpoint). The m
 # check clusters shuffled data and gets 2 threads; changing only the fuzzifier settings
 # repeats the preparation, which costs seconds, while the scans rerun in any case.
 
@@ -45,6 +45,7 @@ rule prepare:
             subcategory="1 preparation",
         ),
         fuzzifier=run_path("{run}", "fuzzifier.json"),
+        scan_input=run_path("{run}", "prepared/scan_input.npz"),
         fuzzifier_curve=report(
             run_path("{run}", "fuzzifier_curve.tsv"),
             caption="../report/fuzzifier_curve.rst",

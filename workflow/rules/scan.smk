@@ -1,12 +1,13 @@
 # One job per (run, c) with every random start inside; all starts are kept in the file.
+# Its one input holds the prepared matrix and the chosen m (one file, not two: a large grid
+# has 14,400 scan jobs, and each input file is work for Snakemake when it plans).
 # One thread by default: a run has a scan job per c, so jobs side by side fill the cores, and
 # for small matrices a second thread would mostly wait for the job's start-up.
 
 
 rule scan:
     input:
-        prepared=run_path("{run}", "prepared/prepared.h5ad"),
-        fuzzifier=run_path("{run}", "fuzzifier.json"),
+        scan_input=run_path("{run}", "prepared/scan_input.npz"),
     output:
         scan=run_path("{run}", "scan/c{c}.npz"),
     params:
