@@ -2,7 +2,8 @@
 
 1. Dry run of 200 datasets x 3 settings variants x c in 2..25: a generated datasets table whose
    matrix and sample-sheet files are empty placeholders (a dry run never reads them), timed
-   as ``snakemake -n`` (DAG build, job selection, job listing). References measured in the
+   as ``snakemake -n`` (DAG build, job selection, job listing), and the DAG build alone as
+   ``snakemake --rulegraph`` (the whole job graph, printed as its rules). References measured in the
    same run: a trivial one-rule Snakefile with the same number of jobs (the ratio says what
    gloam's rules and helpers add per job on top of Snakemake itself), and the same trivial
    Snakefile with 21,000 jobs, the size against which the target was set: the grid's dry run
@@ -168,6 +169,9 @@ def dry_runs(args: argparse.Namespace, root: Path) -> None:
     gloam, same, reference = (min(wall[k]) for k in wall)
     gloam_cpu, same_cpu, reference_cpu = (min(cpus[k]) for k in cpus)
     seconds_full, _, _ = snakemake(python, grid, *common, quiet=False)
+    # The DAG build alone: --rulegraph builds the whole job graph, then prints only the rules.
+    dag_only = [arg for arg in common if arg != "-n"] + ["--rulegraph"]
+    seconds_dag, _, cpu_dag = snakemake(python, grid, *dag_only, quiet=False)
     target_here = PLANNING_RATIO * reference
 
     runs = args.datasets * args.variants
@@ -177,6 +181,8 @@ def dry_runs(args: argparse.Namespace, root: Path) -> None:
     print("                                        wall s     CPU s")
     print(f"gloam   snakemake -n --quiet rules  {gloam:10.1f} {gloam_cpu:9.1f}")
     print(f"gloam   snakemake -n (every job)    {seconds_full:10.1f}            (one round)")
+    print(f"gloam   snakemake --rulegraph       {seconds_dag:10.1f} {cpu_dag:9.1f}  "
+          "(DAG build only; one round)")  # fmt: skip
     print(f"trivial snakemake -n --quiet rules  {same:10.1f} {same_cpu:9.1f}  (same job count)")
     print(f"trivial snakemake -n --quiet rules  {reference:10.1f} {reference_cpu:9.1f}  "
           f"({TARGET_REFERENCE_JOBS} jobs, the target's reference)")  # fmt: skip
