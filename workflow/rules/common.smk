@@ -377,9 +377,10 @@ def runtime_for(rule, base_min, min_per_input_mb):
 
 @job_function
 def scan_mem_mb(wildcards, input, attempt):
-    # All starts are kept: memberships of n_starts x n_genes x c beside the data. The input
-    # (scan_input.npz) holds >= 40 bytes per gene (values and ID), and a scan's memory grew by
-    # up to 0.32 MB per input MB and per start x c (measured: 20,000 genes, 3-24 columns).
+    # All starts are kept: memberships of n_starts x n_genes x c beside the data. A scan's
+    # memory grew by up to 0.32 MB per MB of input (scan_input.npz) and per start x c
+    # (measured: 20,000 genes with 15-character IDs, 3 to 24 columns); 0.5 leaves room for
+    # shorter IDs, which make the input smaller for the same genes.
     scan = get_run(wildcards)["scan"]
     c = int(wildcards.c)
     work = _input_mb(input) * (6 + scan["n_starts"] * c / 2)
