@@ -40,7 +40,19 @@ def _memberships(seed: int, n: int = 60, c: int = 4) -> pd.DataFrame:
 
 
 @pytest.mark.parametrize(
-    "thresholds", [[0.0], [-0.2], [1.5], [float("nan")], ["0.7"], [], [0.7, 0.7], "0.7", [True]]
+    "thresholds",
+    [
+        [0.0],
+        [-0.2],
+        [1.5],
+        [float("nan")],
+        ["0.7"],
+        [],
+        [0.7, 0.7],
+        "0.7",
+        [True],
+        [0.7, 0.70000001],
+    ],
 )
 def test_invalid_thresholds_raise_one_gloam_error(thresholds):
     with pytest.raises(GloamError, match="threshold"):

@@ -422,6 +422,8 @@ def test_lint_reports_nothing(tmp_path):
         ({"scan": {"min_clusters": 5, "max_clusters": 3}}, "min_clusters"),
         ({"fuzzifier": {"m": 0.5}}, "0.5"),
         ({"variants": {"bad": {"scan": {"init": "everywhere"}}}}, "bad"),
+        # Both would be written as ..._core0.7 files.
+        ({"genesets": {"thresholds": [0.7, 0.70000001]}}, "genesets.thresholds"),
     ],
 )
 def test_bad_config_fails_with_a_clear_message(tmp_path, change, expected):
@@ -499,6 +501,18 @@ def test_gloam_cluster_matches_the_workflow(finished, tmp_path):
     pd.testing.assert_frame_equal(ours, workflow)
     assert (out / "genesets" / "gloam_core0.7.gmt").is_file()
     assert (out / "figures" / "profiles.png").stat().st_size > 0
+
+
+def test_gloam_cluster_checks_thresholds_before_clustering(finished, tmp_path, capsys):
+    from gloam.cli import main
+
+    out = tmp_path / "cli"
+    argv = ["cluster", "--prepared", str(results(finished) / "prepared/prepared.h5ad")]
+    with pytest.raises(SystemExit) as exit_info:
+        main([*argv, "--out-dir", str(out), "--thresholds", "0.5,0.5"])
+    assert exit_info.value.code == 2
+    assert "given twice" in capsys.readouterr().err
+    assert not out.exists(), "nothing is written when the thresholds are wrong"
 
 
 def test_gloam_run_drives_snakemake(finished, capsys):

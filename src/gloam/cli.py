@@ -197,6 +197,7 @@ def _add_cluster(subparsers: argparse._SubParsersAction) -> None:
 
 def _run_cluster(args: argparse.Namespace) -> int:
     from gloam import stages
+    from gloam.genesets import check_thresholds
 
     numbers = _cluster_range(args.clusters)
     fixed: str | int = "auto"
@@ -216,6 +217,8 @@ def _run_cluster(args: argparse.Namespace) -> int:
             f"--m {args.m!r} must be auto, randomised or a number, and --thresholds "
             f"{args.thresholds!r} comma-separated numbers"
         ) from None
+    # Checked before any clustering, so a bad threshold does not surface after minutes of work.
+    thresholds = list(check_thresholds(thresholds))
     out = args.out_dir
     stages.run_fuzzifier(
         args.prepared,

@@ -68,7 +68,8 @@ def check_thresholds(thresholds: Iterable[float]) -> tuple[float, ...]:
     Parameters
     ----------
     thresholds : iterable of float
-        Each in (0, 1]; at least one; no repeats.
+        Each in (0, 1]; at least one; no repeats, also not within 6 significant digits
+        (the precision of the labels in file names).
 
     Returns
     -------
@@ -78,7 +79,8 @@ def check_thresholds(thresholds: Iterable[float]) -> tuple[float, ...]:
     Raises
     ------
     GloamError
-        If there are none, one is not a number in (0, 1], or one repeats.
+        If there are none, one is not a number in (0, 1], or one repeats (to 6 significant
+        digits).
     """
     if isinstance(thresholds, str | bytes):
         raise GloamError(f"core thresholds must be numbers in (0, 1]; got {thresholds!r}")
@@ -94,6 +96,14 @@ def check_thresholds(thresholds: Iterable[float]) -> tuple[float, ...]:
             )
         if value in values:
             raise GloamError(f"core threshold {value:g} is given twice; list each once")
+        # File names and summary columns carry the threshold as {value:g} (6 significant
+        # digits): two thresholds with one label would write to the same files.
+        twin = next((other for other in values if f"{other:g}" == f"{value:g}"), None)
+        if twin is not None:
+            raise GloamError(
+                f"core thresholds {twin!r} and {value!r} both appear as {value:g} in file names; "
+                "give thresholds that differ within 6 significant digits"
+            )
         values.append(value)
     if not values:
         raise GloamError("no core thresholds given; give at least one, e.g. 0.7")

@@ -22,6 +22,7 @@ except ImportError:  # pragma: no cover - older or newer Snakemake without it
     overwrite_function_params = None
 
 from gloam.errors import GloamError
+from gloam.genesets import check_thresholds
 from gloam.io import read_sample_sheet
 
 
@@ -66,6 +67,10 @@ _attach_resource_evaluator_params()
 
 
 validate(config, schema="../schemas/config.schema.yaml")
+try:  # what the schema cannot say: thresholds that would share file names
+    check_thresholds(config["genesets"]["thresholds"])
+except GloamError as error:
+    raise WorkflowError(f"config genesets.thresholds: {error}")
 
 RESULTS = config["results_dir"].rstrip("/")
 DEMO_DIR = config["demo"]["out_dir"].rstrip("/")
