@@ -424,6 +424,8 @@ def test_lint_reports_nothing(tmp_path):
         ({"variants": {"bad": {"scan": {"init": "everywhere"}}}}, "bad"),
         # Both would be written as ..._core0.7 files.
         ({"genesets": {"thresholds": [0.7, 0.70000001]}}, "genesets.thresholds"),
+        ({"bogus": 1}, "'bogus' was unexpected"),
+        ({"datasets": "missing.tsv"}, "missing.tsv"),
     ],
 )
 def test_bad_config_fails_with_a_clear_message(tmp_path, change, expected):
@@ -432,8 +434,24 @@ def test_bad_config_fails_with_a_clear_message(tmp_path, change, expected):
     result = snakemake(directory, "--dry-run", check=False)
     assert result.returncode != 0
     message = result.stdout + result.stderr
-    assert expected in message
-    assert "Traceback" not in message
+    (line,) = [line for line in message.splitlines() if line.startswith("gloam: error:")]
+    assert expected in line
+    # One line, no stack frames, no schema or config dump.
+    assert "Traceback" not in message and 'File "' not in message
+    assert len(message.splitlines()) <= 3, message
+
+
+def test_a_dataset_whose_files_do_not_exist_is_named_before_any_job(tmp_path):
+    directory = write_workdir(tmp_path / "run", BASE_CONFIG)
+    (directory / "datasets.tsv").write_text(
+        "name\tmatrix\tsamples\tvalue_type\nlost\tdata/lost_counts.tsv\tdemo/samples.tsv\tcounts\n",
+        encoding="utf-8",
+    )
+    result = snakemake(directory, "--dry-run", check=False)
+    assert result.returncode != 0
+    message = result.stdout + result.stderr
+    assert "gloam: error: dataset 'lost': matrix file 'data/lost_counts.tsv'" in message
+    assert "does not exist" in message and 'File "' not in message
 
 
 def test_user_error_inside_a_rule_is_one_line_and_leaves_no_outputs(tmp_path):

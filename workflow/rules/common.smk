@@ -10,9 +10,11 @@ import inspect
 import math
 import os
 import re
+import sys
 from pathlib import Path
 
 import pandas as pd
+import yaml
 from snakemake.exceptions import WorkflowError
 from snakemake.utils import validate
 
@@ -24,6 +26,7 @@ except ImportError:  # pragma: no cover - older or newer Snakemake without it
 from gloam.errors import GloamError
 from gloam.genesets import check_thresholds
 from gloam.io import read_sample_sheet
+from gloam.schema import describe_schema_violation
 
 
 # ---------------------------------------------------------------- planning speed
@@ -66,11 +69,43 @@ def _attach_resource_evaluator_params():
 _attach_resource_evaluator_params()
 
 
-validate(config, schema="../schemas/config.schema.yaml")
+# ---------------------------------------------------------------- config and datasets
+#
+# A mistake in the config or the datasets table ends planning with one line that names it
+# and says how to fix it ("gloam: error: ..."), not with Snakemake's error report (its stack
+# frames, and for schema violations the whole schema and config).
+
+
+def stop(message):
+    """End the workflow before any job with one line naming a user's mistake and its fix."""
+    print(f"gloam: error: {message}", file=sys.stderr)
+    raise SystemExit(1)
+
+
+SCHEMAS = Path(workflow.basedir) / "workflow" / "schemas"
+
+
+def validated(data, schema_file, name):
+    """Snakemake's schema check (which also fills in defaults), with a one-line message."""
+    try:
+        validate(data, schema=str(SCHEMAS / schema_file))
+    except WorkflowError as error:
+        schema = yaml.safe_load((SCHEMAS / schema_file).read_text(encoding="utf-8"))
+        records = data.to_dict("records") if isinstance(data, pd.DataFrame) else [data]
+        for record in records:
+            where = f"{name}, row of dataset {record.get('name')!r}" if len(records) > 1 else name
+            problem = describe_schema_violation(record, schema, name=where)
+            if problem:
+                stop(problem)
+        stop(f"{name}: {str(error).strip().splitlines()[0]}")
+    return data
+
+
+validated(config, "config.schema.yaml", "config")
 try:  # what the schema cannot say: thresholds that would share file names
     check_thresholds(config["genesets"]["thresholds"])
 except GloamError as error:
-    raise WorkflowError(f"config genesets.thresholds: {error}")
+    stop(f"config genesets.thresholds: {error}")
 
 RESULTS = config["results_dir"].rstrip("/")
 DEMO_DIR = config["demo"]["out_dir"].rstrip("/")
@@ -80,28 +115,46 @@ SETTING_SECTIONS = ("preparation", "fuzzifier", "scan", "selection")
 
 def _read_datasets(path):
     if not Path(path).is_file():
-        raise WorkflowError(
+        stop(
             f"datasets table {path!r} (config key 'datasets') does not exist; create it with "
             "columns name, matrix, samples, value_type or point the key at your table"
         )
     table = pd.read_csv(path, sep="\t", dtype=str, keep_default_na=False, comment="#")
     table.columns = [column.strip() for column in table.columns]
     if "name" not in table.columns:
-        raise WorkflowError(
+        stop(
             f"datasets table {path!r} has no 'name' column (found {list(table.columns)}); it "
             "needs tab-separated columns name, matrix, samples, value_type"
         )
     if table.empty:
-        raise WorkflowError(f"datasets table {path!r} has no rows; add one row per dataset")
+        stop(f"datasets table {path!r} has no rows; add one row per dataset")
     table = table.apply(lambda column: column.str.strip())
     duplicated = table["name"][table["name"].duplicated()].tolist()
     if duplicated:
-        raise WorkflowError(f"datasets table {path!r} names datasets twice: {duplicated}")
+        stop(
+            f"datasets table {path!r} names datasets twice: {duplicated}; give every row a "
+            "name of its own"
+        )
     return table.set_index("name", drop=False)
 
 
+def _check_dataset_files(table, path):
+    """Every matrix and sample sheet exists, except the demo files the workflow makes."""
+    made_here = {os.path.normpath(f"{DEMO_DIR}/{name}") for name in ("counts.tsv", "samples.tsv")}
+    for _, row in table.iterrows():
+        for column in ("matrix", "samples"):
+            file = row[column]
+            if os.path.normpath(file) not in made_here and not Path(file).is_file():
+                stop(
+                    f"dataset {row['name']!r}: {column} file {file!r} (datasets table {path!r}, "
+                    f"column {column}) does not exist; correct the path (relative to the "
+                    "working directory) or create the file"
+                )
+
+
 DATASETS = _read_datasets(config["datasets"])
-validate(DATASETS, schema="../schemas/datasets.schema.yaml")
+validated(DATASETS, "datasets.schema.yaml", f"datasets table {config['datasets']!r}")
+_check_dataset_files(DATASETS, config["datasets"])
 
 
 def _merged_settings(variant, overrides):
@@ -110,10 +163,7 @@ def _merged_settings(variant, overrides):
     for section in SETTING_SECTIONS:
         merged[section] = {**config[section], **overrides.get(section, {})}
     merged["variants"] = {}
-    try:
-        validate(merged, schema="../schemas/config.schema.yaml")
-    except WorkflowError as error:
-        raise WorkflowError(f"variant {variant!r} in config 'variants' is invalid: {error}")
+    validated(merged, "config.schema.yaml", f"config variant {variant!r}")
     return {section: merged[section] for section in SETTING_SECTIONS}
 
 
@@ -121,7 +171,7 @@ def _conditions(dataset):
     """Conditions of a dataset, read from its sample sheet when the workflow starts."""
     path = DATASETS.loc[dataset, "samples"]
     if not Path(path).is_file():
-        raise WorkflowError(
+        stop(
             f"dataset {dataset!r}: preparation.conditions is 'separate', which needs the sample "
             f"sheet {path!r} to exist before the workflow starts (conditions become runs); "
             "create it or use conditions: concatenate"
@@ -129,13 +179,13 @@ def _conditions(dataset):
     try:
         sheet = read_sample_sheet(path)
     except GloamError as error:
-        raise WorkflowError(f"dataset {dataset!r}: {error}")
+        stop(f"dataset {dataset!r}: {error}")
     if "condition" not in sheet.columns:
         return [None]
     names = list(dict.fromkeys(sheet["condition"]))
     bad = [name for name in names if not NAME_PATTERN.match(name)]
     if bad:
-        raise WorkflowError(
+        stop(
             f"dataset {dataset!r}: condition names {bad} in {path!r} cannot be part of a run id "
             "with conditions: separate; use letters, digits, '_' and '-' only"
         )
@@ -152,7 +202,7 @@ def _build_runs():
         for variant, settings in settings_of.items():
             scan = settings["scan"]
             if scan["min_clusters"] > scan["max_clusters"]:
-                raise WorkflowError(
+                stop(
                     f"scan.min_clusters ({scan['min_clusters']}) is larger than "
                     f"scan.max_clusters ({scan['max_clusters']})"
                     + (f" in variant {variant!r}" if variant else "")
