@@ -9,6 +9,7 @@ status 2, never a traceback.
 from __future__ import annotations
 
 import argparse
+import math
 import sys
 import warnings
 from collections.abc import Callable, Sequence
@@ -45,6 +46,38 @@ _PREPARE_SETTINGS = (
     ("--conditions", str, "concatenate | separate (default concatenate)"),
     ("--condition", str, "the condition to prepare with --conditions separate"),
 )
+
+
+# ------------------------------------------------------------------ checks shared by subcommands
+
+
+def _check_option(option: str, value: object, allowed: bool, rule: str, example: str) -> None:
+    """Refuse ``value`` of ``option`` unless ``allowed``; ``rule`` says what is accepted."""
+    if not allowed:
+        raise GloamError(
+            f"{option} {value} is not allowed: it must be {rule}; give e.g. {option} {example}"
+        )
+
+
+def _check_seed(seed: int, example: str) -> None:
+    """Refuse a negative ``--seed`` (NumPy's generators take whole numbers >= 0 only)."""
+    _check_option("--seed", seed, seed >= 0, "a whole number >= 0", example)
+
+
+def _check_out_dir(out_dir: Path) -> None:
+    """Refuse an ``--out-dir`` that is, or lies inside, an existing file."""
+    for path in (out_dir, *out_dir.parents):
+        if path.exists():
+            if not path.is_dir():
+                where = "is a file" if path == out_dir else f"lies inside the file {str(path)!r}"
+                raise GloamError(
+                    f"--out-dir {str(out_dir)!r} {where}, not a directory; choose a directory "
+                    "path (a new or an existing folder)"
+                )
+            return
+
+
+# ------------------------------------------------------------------ subcommands
 
 
 def _add_prepare(subparsers: argparse._SubParsersAction) -> None:
@@ -104,6 +137,7 @@ def _run_prepare(args: argparse.Namespace) -> int:
     from gloam.io import read_matrix, read_sample_sheet
     from gloam.prepare import prepare_expression, settings_from_mapping, write_prepared
 
+    _check_out_dir(args.out_dir)
     mapping = _read_settings_file(args.settings) if args.settings is not None else {}
     mapping["value_type"] = args.value_type
     for option, _kind, _text in _PREPARE_SETTINGS:
@@ -144,6 +178,8 @@ def _add_demo(subparsers: argparse._SubParsersAction) -> None:
 def _run_demo(args: argparse.Namespace) -> int:
     from gloam.demo import write_demo
 
+    _check_out_dir(args.out_dir)
+    _check_seed(args.seed, "20261201")
     paths = write_demo(
         args.out_dir, seed=args.seed, n_genes=args.n_genes, n_replicates=args.n_replicates
     )
@@ -195,39 +231,101 @@ def _add_cluster(subparsers: argparse._SubParsersAction) -> None:
     parser.set_defaults(run=_run_cluster)
 
 
-def _run_cluster(args: argparse.Namespace) -> int:
-    from gloam import stages
+#: c of the randomised-data check of m in ``gloam cluster`` (fewer when the genes are fewer).
+_CLUSTERS_FOR_M_CHECK = 6
+
+
+def _fixed_n_clusters(text: str) -> str | int:
+    """``--n-clusters``: ``"auto"`` or a whole number >= 2."""
+    if text == "auto":
+        return text
+    try:
+        number = int(text)
+    except ValueError:
+        number = 0
+    _check_option(
+        "--n-clusters", repr(text), number >= 2, "auto or a whole number >= 2", "auto or 5"
+    )
+    return number
+
+
+def _fuzzifier_setting(text: str) -> str | float:
+    """``--m``: ``"auto"``, ``"randomised"`` or a finite number > 1."""
+    if text in ("auto", "randomised"):
+        return text
+    try:
+        number = float(text)
+    except ValueError:
+        number = math.nan
+    _check_option(
+        "--m",
+        repr(text),
+        math.isfinite(number) and number > 1,
+        "auto, randomised or a number > 1",
+        "auto or 1.5",
+    )
+    return number
+
+
+def _threshold_list(text: str) -> list[float]:
+    """``--thresholds``: comma-separated core membership thresholds, each in (0, 1]."""
     from gloam.genesets import check_thresholds
 
-    numbers = _cluster_range(args.clusters)
-    fixed: str | int = "auto"
-    if args.n_clusters != "auto":
-        try:
-            fixed = int(args.n_clusters)
-        except ValueError:
-            raise GloamError(
-                f"--n-clusters {args.n_clusters!r} must be auto or a whole number >= 2"
-            ) from None
-        numbers = sorted({*numbers, fixed})
     try:
-        m: str | float = args.m if args.m in ("auto", "randomised") else float(args.m)
-        thresholds = [float(value) for value in args.thresholds.split(",") if value.strip()]
+        thresholds = [float(value) for value in text.split(",") if value.strip()]
     except ValueError:
         raise GloamError(
-            f"--m {args.m!r} must be auto, randomised or a number, and --thresholds "
-            f"{args.thresholds!r} comma-separated numbers"
+            f"--thresholds {text!r} is not allowed: it must be comma-separated numbers in "
+            "(0, 1]; give e.g. --thresholds 0.5,0.7"
         ) from None
-    # Checked before any clustering, so a bad threshold does not surface after minutes of work.
-    thresholds = list(check_thresholds(thresholds))
-    out = args.out_dir
-    stages.run_fuzzifier(
-        args.prepared,
-        {"m": m, "n_clusters_check": 6},
-        args.seed,
-        out / "fuzzifier.json",
-        out / "fuzzifier_curve.tsv",
-        out / "scan_input.npz",
+    return list(check_thresholds(thresholds))
+
+
+def _check_cluster_run_options(args: argparse.Namespace) -> None:
+    """Refuse a bad ``--n-starts``, ``--tol``, ``--max-iter``, ``--seed`` or ``--time-unit``."""
+    _check_option("--n-starts", args.n_starts, args.n_starts >= 1, "at least 1", "20")
+    _check_option(
+        "--tol",
+        args.tol,
+        math.isfinite(args.tol) and args.tol >= 0,
+        "a finite number >= 0 (0 runs exactly --max-iter iterations)",
+        "1e-4",
     )
+    _check_option("--max-iter", args.max_iter, args.max_iter >= 1, "at least 1", "500")
+    _check_seed(args.seed, "1")
+    _check_option(
+        "--time-unit",
+        repr(args.time_unit),
+        bool(args.time_unit.strip()),
+        "the unit of the time column, not empty",
+        "h",
+    )
+
+
+def _run_cluster(args: argparse.Namespace) -> int:
+    from gloam import stages
+    from gloam.prepare import read_prepared
+
+    # Every option is checked before anything is written, so a mistake leaves no files and
+    # does not surface after minutes of work.
+    _check_out_dir(args.out_dir)
+    numbers = _cluster_range(args.clusters)
+    fixed = _fixed_n_clusters(args.n_clusters)
+    if fixed != "auto":
+        numbers = sorted({*numbers, fixed})
+    m = _fuzzifier_setting(args.m)
+    thresholds = _threshold_list(args.thresholds)
+    _check_cluster_run_options(args)
+    zscores, _columns = read_prepared(args.prepared)
+    n_genes = len(zscores)
+    stages.check_genes_for_fuzzifier(n_genes)
+    stages.check_clusters_fit_genes(max(numbers), n_genes)
+    out = args.out_dir
+    fuzzifier = {"m": m, "n_clusters_check": min(_CLUSTERS_FOR_M_CHECK, n_genes - 1)}
+    chosen_m = stages.write_fuzzifier_choice(
+        zscores, fuzzifier, args.seed, out / "fuzzifier.json", out / "fuzzifier_curve.tsv"
+    )
+    stages.write_scan_input(zscores, chosen_m, out / "scan_input.npz")
     scan_settings = {
         "n_starts": args.n_starts,
         "tol": args.tol,

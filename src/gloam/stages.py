@@ -11,7 +11,7 @@ Files between stages
     Every random start for one c: ``memberships`` (n_starts, n_genes, c), ``centroids``
     (n_starts, c, n_columns), ``objectives``, ``n_iter``, ``converged`` (n_starts,),
     ``m``, ``best_index``, ``seed``, ``genes`` and ``columns`` (the prepared matrix's labels).
-``fuzzifier.json`` (:func:`run_fuzzifier`)
+``fuzzifier.json`` (:func:`write_fuzzifier_choice`)
     ``m``, ``method``, ``formula_m``, ``setting``, ``n_clusters_check``, ``n_genes``,
     ``n_columns``; the randomised-data curve goes to its own TSV.
 ``prepared/scan_input.npz`` (:func:`write_scan_input`)
@@ -45,6 +45,7 @@ import shutil
 import sys
 import tempfile
 import traceback
+import warnings
 from collections.abc import Iterator, Mapping, Sequence
 from importlib import metadata
 from pathlib import Path
@@ -53,14 +54,16 @@ from typing import Any, TextIO
 import numpy as np
 import pandas as pd
 
-from gloam.errors import GloamError
+from gloam.errors import GloamError, GloamWarning
 from gloam.io import atomic_output, write_table
 
 __all__ = [
     "rule_environment",
     "run_demo",
     "run_prepare",
-    "run_fuzzifier",
+    "check_genes_for_fuzzifier",
+    "check_clusters_fit_genes",
+    "clusters_for_fuzzifier_check",
     "write_fuzzifier_choice",
     "write_scan_input",
     "read_scan_input",
@@ -230,27 +233,54 @@ def run_prepare(
     return prepared.zscores
 
 
+# ------------------------------------------------------------------ checks against the data size
+
+#: Fewest genes the fuzzifier step works with (its check clusters them into at least 2).
+MIN_GENES_FOR_FUZZIFIER = 3
+
+#: Preparation settings that decide how many genes are left, named in messages.
+_GENE_FILTERS = "min_expression, min_samples_expressed, min_sd, top_variable, max_missing_fraction"
+
+
+def check_genes_for_fuzzifier(n_genes: int) -> None:
+    """Refuse a prepared matrix with too few genes to choose the fuzzifier m for."""
+    if n_genes < MIN_GENES_FOR_FUZZIFIER:
+        raise GloamError(
+            f"choosing the fuzzifier m needs at least {MIN_GENES_FOR_FUZZIFIER} genes, but only "
+            f"{n_genes} gene(s) were left after preparation; keep more genes by relaxing the "
+            f"preparation filters ({_GENE_FILTERS})"
+        )
+
+
+def check_clusters_fit_genes(n_clusters: int, n_genes: int) -> None:
+    """Refuse a number of clusters c that is not below the number of genes."""
+    if n_clusters >= n_genes:
+        raise GloamError(
+            f"c = {n_clusters} needs more than {n_clusters} genes, but the prepared matrix has "
+            f"{n_genes} gene(s); scan fewer clusters (scan.max_clusters or selection.n_clusters "
+            "in the config, --clusters or --n-clusters of gloam cluster) or keep more genes "
+            "(relax the preparation filters such as top_variable and min_sd)"
+        )
+
+
+def clusters_for_fuzzifier_check(requested: int, n_genes: int) -> int:
+    """c for the randomised-data check of m: ``requested``, or ``n_genes - 1`` when that is
+    smaller (fuzzy c-means needs fewer clusters than genes), with a warning saying so."""
+    usable = n_genes - 1
+    if requested <= usable:
+        return requested
+    warnings.warn(
+        f"fuzzifier.n_clusters_check = {requested} was lowered to {usable} for the "
+        f"randomised-data check of m, because the check needs fewer clusters than genes and "
+        f"the prepared matrix has {n_genes}; set n_clusters_check to at most {usable} to "
+        "choose the value yourself",
+        GloamWarning,
+        stacklevel=2,
+    )
+    return usable
+
+
 # ------------------------------------------------------------------ fuzzifier and scan
-
-
-def run_fuzzifier(
-    prepared: PathLike,
-    settings: Mapping[str, Any],
-    seed: int,
-    out_json: PathLike,
-    out_curve: PathLike,
-    out_scan_input: PathLike,
-) -> None:
-    """Choose the fuzzifier m for a prepared matrix; write the choice, its curve and the
-    scan input (the matrix with that m, see :func:`write_scan_input`).
-
-    ``settings``: ``m`` (``"auto"``, ``"randomised"`` or a number > 1) and
-    ``n_clusters_check``.  The curve TSV has the columns of
-    :data:`gloam.fuzzifier.CURVE_COLUMNS`.
-    """
-    zscores, _columns = _read_prepared(prepared)
-    m = write_fuzzifier_choice(zscores, settings, seed, out_json, out_curve)
-    write_scan_input(zscores, m, out_scan_input)
 
 
 def write_fuzzifier_choice(
@@ -260,14 +290,25 @@ def write_fuzzifier_choice(
     out_json: PathLike,
     out_curve: PathLike,
 ) -> float:
-    """Choose m for z-scores already in memory (genes x prepared columns); write the choice
-    and its curve as :func:`run_fuzzifier` does, and return m."""
+    """Choose the fuzzifier m for z-scores (genes x prepared columns); write the choice and
+    its curve, and return m.
+
+    ``settings``: ``m`` (``"auto"``, ``"randomised"`` or a number > 1) and
+    ``n_clusters_check``. The curve TSV has the columns of
+    :data:`gloam.fuzzifier.CURVE_COLUMNS`.
+
+    Fewer than 3 genes are refused before anything is written
+    (:func:`check_genes_for_fuzzifier`); ``n_clusters_check`` is lowered below the number
+    of genes with a warning (:func:`clusters_for_fuzzifier_check`).
+    """
     from gloam.fuzzifier import choose_fuzzifier
 
+    n_genes = int(zscores.shape[0])
+    check_genes_for_fuzzifier(n_genes)
     choice = choose_fuzzifier(
         zscores.to_numpy(),
         settings["m"],
-        n_clusters_check=int(settings["n_clusters_check"]),
+        n_clusters_check=clusters_for_fuzzifier_check(int(settings["n_clusters_check"]), n_genes),
         rng=np.random.default_rng([int(seed), 0]),
     )
     write_table(choice.curve, out_curve)
@@ -326,11 +367,13 @@ def run_scan(
 
     ``scan_input`` is the file of :func:`write_scan_input` (z-scores and m). ``settings``:
     ``n_starts``, ``tol``, ``max_iter``, ``init``, ``precision`` (the scan section of the
-    config; other keys are ignored).
+    config; other keys are ignored). A c not below the number of genes is refused with a
+    message saying how to fix it (:func:`check_clusters_fit_genes`).
     """
     from gloam.fcm import fuzzy_cmeans
 
     zscores, m = read_scan_input(scan_input)
+    check_clusters_fit_genes(int(n_clusters), len(zscores))
     result = fuzzy_cmeans(
         zscores.to_numpy(),
         int(n_clusters),
