@@ -7,6 +7,7 @@ itself (the outside source is the file's own text), unless a check names another
 from __future__ import annotations
 
 import gzip
+import warnings
 from pathlib import Path
 
 import anndata
@@ -94,7 +95,11 @@ def test_h5ad_matrix_is_transposed_to_genes_by_samples_and_layer_is_chosen(tmp_p
         ("m.tsv", "gene\ta\tb\n", "no gene rows; the matrix is empty"),
         ("m.tsv", "gene\n g1\n", "no sample columns"),
         ("m.tsv", "", "is empty"),
-        ("m.tsv", "gene\ta\tb\ng1\t1\t2\t3\t4\n", "could not be parsed"),
+        (
+            "m.tsv",
+            "gene\ta\tb\ng1\t1\t2\t3\t4\n",
+            "line 2 \\(gene 'g1'\\) has 5 fields but the header has 3",
+        ),
         ("m.tsv", "gene\ta\tb\n\t1\t2\n", "empty gene ID"),
         ("m.xlsx", "gene\ta\n", "unknown extension"),
     ],
@@ -103,6 +108,99 @@ def test_bad_matrix_files_give_one_clear_message(tmp_path, name, text, message):
     path = write_text(tmp_path / name, text)
     with pytest.raises(GloamError, match=message):
         read_matrix(path)
+
+
+# A table long enough that cutting its gzip in half leaves whole lines to decompress.
+LONG_MATRIX = "gene\ta\tb\n" + "".join(f"g{i}\t{i}\t{2 * i}\n" for i in range(2000))
+LONG_SHEET = "sample\ttime\n" + "".join(f"s{i}\t{i}\n" for i in range(2000))
+
+
+def read_matrix_or_sheet(reader: str, path: Path) -> object:
+    return read_matrix(path) if reader == "matrix" else read_sample_sheet(path)
+
+
+def cut_in_half(whole: bytes) -> bytes:
+    return whole[: len(whole) // 2]  # a download cut short: EOFError
+
+
+def spoil_checksum(whole: bytes) -> bytes:
+    # RFC 1952: the last 8 bytes are CRC-32 then length; gzip raises BadGzipFile (OSError).
+    return whole[:-8] + bytes([whole[-8] ^ 0xFF]) + whole[-7:]
+
+
+def spoil_block_type(whole: bytes) -> bytes:
+    # RFC 1951: 0xFF as the first deflate byte (after the 10-byte gzip header) sets the
+    # reserved block type 11, which zlib refuses with zlib.error.
+    return whole[:10] + b"\xff" + whole[11:]
+
+
+@pytest.mark.parametrize("reader,text", [("matrix", LONG_MATRIX), ("sheet", LONG_SHEET)])
+@pytest.mark.parametrize(
+    "damage,cause",
+    [
+        (cut_in_half, "Compressed file ended"),
+        (spoil_checksum, "CRC check failed"),
+        (spoil_block_type, "invalid block type"),
+    ],
+)
+def test_damaged_gzip_is_named_with_the_gzip_fix(tmp_path, reader, text, damage, cause):
+    path = tmp_path / "table.tsv.gz"
+    path.write_bytes(damage(gzip.compress(text.encode("utf-8"))))
+    with pytest.raises(GloamError, match="is a damaged or incomplete gzip file") as caught:
+        read_matrix_or_sheet(reader, path)
+    message = str(caught.value)
+    assert cause in message
+    assert "gzip -t" in message and "download it again or compress it again" in message
+    assert "one value per" not in message  # not the advice for a badly laid out table
+
+
+def test_plain_text_named_gz_is_told_apart_from_a_damaged_gzip(tmp_path):
+    path = tmp_path / "m.tsv.gz"
+    path.write_text("gene\ta\ng1\t1\n", encoding="utf-8")
+    with pytest.raises(GloamError, match="is not gzip-compressed although its name ends in .gz"):
+        read_matrix(path)
+
+
+@pytest.mark.parametrize(
+    "name,text,found",
+    [
+        ("m.tsv", "gene\ta\tb\tc\ng1\t1\t2\t3\ng2\t4\t5\ng3\t6\n", "line 3 \\(gene 'g2'\\) has 3"),
+        ("m.tsv.gz", "gene\ta\tb\tc\ng1\t1\t2\t3\ng2\t4\t5\n", "line 3 \\(gene 'g2'\\) has 3"),
+        ("m.tsv", "gene\ta\tb\tc\ng1\t1\t2\t3\t4\ng2\t4\t5\t6\n", "line 2 \\(gene 'g1'\\) has 5"),
+        # The quoted comma is part of a value, so the row has 3 fields, not 4.
+        ("m.csv", 'gene,a,b,c\ng1,1,2,3\n"g,2","1,5",4\n', "line 3 \\(gene 'g,2'\\) has 3"),
+    ],
+)
+def test_rows_with_fewer_or_more_fields_than_the_header_are_refused(tmp_path, name, text, found):
+    path = write_text(tmp_path / name, text)
+    with pytest.raises(GloamError, match=f"{found} fields but the header has 4") as caught:
+        read_matrix(path)
+    assert "exactly one value per sample" in str(caught.value)
+
+
+def test_empty_cells_are_missing_values_not_short_rows(tmp_path):
+    text = 'gene,a,b,c\r\ng1,,2,3\r\n\r\n"g,2","1",5,\r\n'
+    matrix = read_matrix(write_text(tmp_path / "m.csv", text))
+    assert matrix.index.tolist() == ["g1", "g,2"]
+    assert np.isnan(matrix.loc["g1", "a"]) and np.isnan(matrix.loc["g,2", "c"])
+    assert_allclose(matrix.loc["g,2", ["a", "b"]].to_numpy(), [1.0, 5.0], rtol=0, atol=0)
+
+
+def test_duplicate_gene_ids_in_h5ad_give_our_error_without_anndata_warning(tmp_path):
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # anndata warns about the duplicates we build here
+        data = anndata.AnnData(
+            X=np.ones((2, 3)),
+            obs=pd.DataFrame(index=["s1", "s2"]),
+            var=pd.DataFrame(index=["g1", "g2", "g1"]),
+        )
+        path = tmp_path / "m.h5ad"
+        data.write_h5ad(path)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        with pytest.raises(GloamError, match="duplicate gene IDs: 'g1' \\(2x\\)"):
+            read_matrix(path)
+    assert not [str(warning.message) for warning in caught if "not unique" in str(warning.message)]
 
 
 def test_missing_matrix_file_is_named(tmp_path):

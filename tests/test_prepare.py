@@ -448,6 +448,37 @@ def test_no_gene_left_reports_the_reasons():
         prepare_expression(counts, sheet, PrepareSettings(min_expression=1e7))
 
 
+def test_all_flat_genes_point_at_the_data_not_the_filters():
+    sheet = make_sheet([0, 1, 2], replicates=2)
+    levels = np.array([[1.0], [5.0], [9.0]])  # each gene the same at every time point
+    values = pd.DataFrame(
+        np.repeat(levels, len(sheet), axis=1),
+        index=pd.Index(["a", "b", "c"], name="gene"),
+        columns=sheet["sample"].to_list(),
+    )
+    with pytest.raises(GloamError, match="\\(flat: 3\\): every gene is flat") as caught:
+        prepare_expression(values, sheet, PrepareSettings(value_type="log"))
+    message = str(caught.value)
+    assert "flat genes are always dropped" in message
+    assert "sample sheet's time column" in message
+    assert "relax the filters" not in message  # no filter removed anything
+
+
+def test_flat_genes_left_after_the_filters_get_both_kinds_of_advice():
+    sheet = make_sheet([0, 1, 2])
+    values = pd.DataFrame(
+        [[4.0, 4.0, 4.0], [0.0, 0.5, 0.2]],  # worked by hand: flat; below 1 everywhere
+        index=pd.Index(["flat", "low"], name="gene"),
+        columns=sheet["sample"].to_list(),
+    )
+    settings = PrepareSettings(value_type="log", min_expression=1.0, min_samples_expressed=1)
+    with pytest.raises(GloamError, match="every gene that passed the filters is flat") as caught:
+        prepare_expression(values, sheet, settings)
+    message = str(caught.value)
+    assert "(low_expression: 1, flat: 1)" in message
+    assert "sample sheet's time column" in message and "relax the filters" in message
+
+
 # ---------------------------------------------------------------- settings
 
 

@@ -16,8 +16,12 @@ import contextlib
 import csv
 import glob
 import gzip
+import io
 import os
+import re
 import tempfile
+import warnings
+import zlib
 from collections.abc import Iterable, Iterator, Mapping, Sequence
 from pathlib import Path
 
@@ -153,19 +157,117 @@ def _text_separator(path: Path, what: str) -> str:
     )
 
 
-def _read_header(path: Path, separator: str, what: str) -> list[str]:
-    opener = gzip.open if path.suffix.lower() == ".gz" else open
+# What gzip and zlib raise for a damaged, truncated or mislabelled ``.gz`` file:
+# BadGzipFile (an OSError) for a wrong magic number, CRC or length, EOFError for a file
+# cut short, zlib.error for corrupt compressed data.
+_GZIP_ERRORS = (gzip.BadGzipFile, EOFError, zlib.error)
+_GZIP_MAGIC = b"\x1f\x8b"
+
+
+def _is_gzipped_name(path: Path) -> bool:
+    return path.suffix.lower() == ".gz"
+
+
+def _damaged_gzip_error(path: Path, what: str, error: Exception) -> GloamError:
+    """The one message for a ``.gz`` file that cannot be decompressed."""
+    with open(path, "rb") as stream:
+        magic = stream.read(len(_GZIP_MAGIC))
+    if magic != _GZIP_MAGIC:
+        return GloamError(
+            f"{what} file {str(path)!r} is not gzip-compressed although its name ends in "
+            ".gz; compress it with gzip or remove .gz from its name"
+        )
+    return GloamError(
+        f"{what} file {str(path)!r} is a damaged or incomplete gzip file ({error}); "
+        f"check it with 'gzip -t {path}', then download it again or compress it again from "
+        "the original"
+    )
+
+
+def _read_text(path: Path, what: str) -> str:
+    """The whole text of a table file, decompressed when its name ends in ``.gz``.
+
+    Line ends are normalised to ``\\n`` and a UTF-8 byte-order mark is removed.
+
+    Raises
+    ------
+    GloamError
+        A damaged or incomplete gzip file, a file that cannot be read or is not UTF-8.
+    """
     try:
-        with opener(path, "rt", encoding="utf-8-sig", newline="") as stream:
-            header = next(csv.reader(stream, delimiter=separator), None)
-    except (OSError, UnicodeDecodeError, csv.Error) as error:
+        if _is_gzipped_name(path):
+            with gzip.open(path, "rt", encoding="utf-8-sig") as stream:
+                return stream.read()
+        with open(path, encoding="utf-8-sig") as stream:
+            return stream.read()
+    except _GZIP_ERRORS as error:
+        raise _damaged_gzip_error(path, what, error) from error
+    except (OSError, UnicodeDecodeError) as error:
         raise GloamError(
             f"{what} file {str(path)!r} cannot be read as text ({error}); "
             "give an uncompressed or gzipped UTF-8 table"
         ) from error
+
+
+def _read_header(text: str, separator: str, path: Path, what: str) -> list[str]:
+    """Fields of the first line of ``text``, surrounding spaces removed."""
+    first_line = text.partition("\n")[0]
+    try:
+        header = next(csv.reader([first_line], delimiter=separator), None)
+    except csv.Error as error:
+        raise GloamError(
+            f"{what} file {str(path)!r}: the header line cannot be read ({error}); "
+            f"write the column names on the first line, separated by "
+            f"{_separator_name(separator)}"
+        ) from error
     if not header or not any(field.strip() for field in header):
         raise GloamError(f"{what} file {str(path)!r} is empty; it needs a header line")
     return [field.strip() for field in header]
+
+
+def _separator_name(separator: str) -> str:
+    return "tabs" if separator == "\t" else "commas"
+
+
+def _quoted_field_pattern(separator: str) -> str:
+    """Regular expression of a whole quoted field (``"..."``, ``""`` inside escapes a quote)."""
+    escaped = re.escape(separator)
+    return f'(?:^|(?<={escaped}))"(?:[^"]|"")*"(?={escaped}|$)'
+
+
+def _check_field_counts(text: str, separator: str, n_fields: int, path: Path) -> None:
+    """Refuse data lines with more or fewer fields than the header (ragged rows).
+
+    pandas pads a short row with empty cells, which would then read as missing values, so
+    the separators of every line are counted first, in one vectorised pass.  In lines with
+    a quote character, whole quoted fields (which may hold separators) are removed before
+    counting; blank lines are skipped, as pandas skips them.
+
+    Raises
+    ------
+    GloamError
+        Naming the first ragged line (line number and gene), the fields found and expected.
+    """
+    lines = pd.Series(text.split("\n")[1:], dtype=object)
+    separator_pattern = re.escape(separator)
+    separators = lines.str.count(separator_pattern).to_numpy()
+    if '"' in text:
+        quoted = np.flatnonzero(lines.str.contains('"', regex=False).to_numpy())
+        unquoted = lines.iloc[quoted].str.replace(_quoted_field_pattern(separator), "", regex=True)
+        separators[quoted] = unquoted.str.count(separator_pattern).to_numpy()
+    suspects = np.flatnonzero(separators != n_fields - 1)
+    blank = (separators[suspects] == 0) & (lines.iloc[suspects].str.strip() == "").to_numpy()
+    ragged = suspects[~blank]
+    if ragged.size == 0:
+        return
+    first = int(ragged[0])
+    fields = next(csv.reader([lines.iloc[first]], delimiter=separator))
+    raise GloamError(
+        f"matrix file {str(path)!r}: line {first + 2} (gene {fields[0].strip()!r}) has "
+        f"{len(fields)} fields but the header has {n_fields} ({ragged.size} such line(s)); "
+        f"give every row its gene ID and exactly one value per sample, separated by "
+        f"{_separator_name(separator)} (leave a cell empty or write NA for a missing value)"
+    )
 
 
 def _name_duplicates(names: Sequence[str], limit: int = 5) -> str:
@@ -198,9 +300,11 @@ def read_matrix(path: str | os.PathLike[str], *, layer: str | None = None) -> pd
     Raises
     ------
     GloamError
-        Missing file, unknown extension, unreadable file, empty matrix, duplicate or empty
-        gene IDs or sample names, a cell that is not a number (gene and sample named),
-        ragged rows, ``layer`` given for a text file or not present in the ``.h5ad``.
+        Missing file, unknown extension, unreadable file, damaged or incomplete ``.gz`` file,
+        empty matrix, duplicate or empty gene IDs or sample names, a cell that is not a
+        number (gene and sample named), ragged rows (a row with more or fewer fields than
+        the header; line and gene named), ``layer`` given for a text file or not present in
+        the ``.h5ad``.
     """
     path = Path(path)
     _require_file(path, "matrix")
@@ -219,13 +323,14 @@ def read_matrix(path: str | os.PathLike[str], *, layer: str | None = None) -> pd
 
 def _read_text_matrix(path: Path) -> pd.DataFrame:
     separator = _text_separator(path, "matrix")
-    header = _read_header(path, separator, "matrix")
+    text = _read_text(path, "matrix")
+    header = _read_header(text, separator, path, "matrix")
     samples = header[1:]
     if not samples:
         raise GloamError(
             f"matrix file {str(path)!r} has no sample columns (header {header!r}); expected "
             f"gene IDs in the first column and one column per sample, separated by "
-            f"{'tabs' if separator == chr(9) else 'commas'}"
+            f"{_separator_name(separator)}"
         )
     if any(not name for name in samples):
         position = samples.index("") + 2
@@ -238,12 +343,13 @@ def _read_text_matrix(path: Path) -> pd.DataFrame:
             f"matrix file {str(path)!r} has duplicate sample names in the header: "
             f"{_name_duplicates(samples)}; make every sample name unique"
         )
+    _check_field_counts(text, separator, len(header), path)
     # Positional column labels keep pandas from renaming duplicates or reinterpreting the
     # header; gene IDs are read as text and never NA-converted or date-parsed.
     names = list(range(len(header)))
     try:
         table = pd.read_csv(
-            path,
+            io.StringIO(text),
             sep=separator,
             header=None,
             skiprows=1,
@@ -252,10 +358,9 @@ def _read_text_matrix(path: Path) -> pd.DataFrame:
             dtype={0: str},
             keep_default_na=False,
             na_values={column: _MISSING_MARKERS for column in names[1:]},
-            encoding="utf-8-sig",
             low_memory=False,
         )
-    except (pd.errors.ParserError, ValueError, UnicodeDecodeError, OSError) as error:
+    except (pd.errors.ParserError, ValueError) as error:
         raise GloamError(
             f"matrix file {str(path)!r} could not be parsed ({' '.join(str(error).split())}); "
             "check that every row has a gene ID and one value per sample"
@@ -287,7 +392,15 @@ def _read_h5ad_matrix(path: Path, layer: str | None) -> pd.DataFrame:
     import scipy.sparse
 
     try:
-        data = anndata.read_h5ad(path)
+        with warnings.catch_warnings():
+            # Duplicate gene IDs and sample names are reported by _check_matrix_labels,
+            # as one GloamError; anndata's own warning about them would only add noise.
+            warnings.filterwarnings(
+                "ignore",
+                message=r"(Variable|Observation) names are not unique",
+                category=UserWarning,
+            )
+            data = anndata.read_h5ad(path)
     except Exception as error:  # anndata/h5py raise many unrelated types for a bad file
         raise GloamError(
             f"matrix file {str(path)!r} could not be read as AnnData .h5ad ({error}); "
@@ -369,15 +482,16 @@ def read_sample_sheet(path: str | os.PathLike[str]) -> pd.DataFrame:
     Raises
     ------
     GloamError
-        Missing file, unknown extension, missing ``sample``/``time`` column, a column named
-        twice, no rows, empty or duplicate sample names, a time that is not a finite
-        number (sample named), an empty condition, or the same replicate named twice for
-        one condition and time.
+        Missing file, unknown extension, damaged or incomplete ``.gz`` file, missing
+        ``sample``/``time`` column, a column named twice, no rows, empty or duplicate sample
+        names, a time that is not a finite number (sample named), an empty condition, or
+        the same replicate named twice for one condition and time.
     """
     path = Path(path)
     _require_file(path, "sample sheet")
     separator = _text_separator(path, "sample sheet")
-    header = [name.lower() for name in _read_header(path, separator, "sample sheet")]
+    text = _read_text(path, "sample sheet")
+    header = [name.lower() for name in _read_header(text, separator, path, "sample sheet")]
     for column in SAMPLE_SHEET_COLUMNS:
         if header.count(column) > 1:
             raise GloamError(
@@ -388,20 +502,19 @@ def read_sample_sheet(path: str | os.PathLike[str]) -> pd.DataFrame:
         raise GloamError(
             f"sample sheet {str(path)!r} lacks the column(s) {missing} (found {header}); "
             "it needs columns sample and time, optionally replicate and condition, "
-            f"separated by {'tabs' if separator == chr(9) else 'commas'}"
+            f"separated by {_separator_name(separator)}"
         )
     try:
         table = pd.read_csv(
-            path,
+            io.StringIO(text),
             sep=separator,
             header=None,
             skiprows=1,
             names=header,
             dtype=str,
             keep_default_na=False,
-            encoding="utf-8-sig",
         )
-    except (pd.errors.ParserError, ValueError, UnicodeDecodeError, OSError) as error:
+    except (pd.errors.ParserError, ValueError) as error:
         raise GloamError(
             f"sample sheet {str(path)!r} could not be parsed ({' '.join(str(error).split())}); "
             "check that every row has one value per column"

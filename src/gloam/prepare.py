@@ -713,6 +713,43 @@ def _layout(
 # The public pipeline
 
 
+def _no_gene_left_error(summary: pd.DataFrame) -> GloamError:
+    """The error when every gene was dropped, with advice that fits the reasons.
+
+    Flat genes are dropped whatever the settings, so when the flat step removed every gene
+    that reached it, the message points at the data (values, time column) instead of, or
+    besides, the filters.
+
+    Parameters
+    ----------
+    summary : DataFrame
+        Columns ``reason`` and ``n_genes``, as in :class:`PreparedData`.
+    """
+    n_genes = dict(zip(summary["reason"], summary["n_genes"], strict=True))
+    counts = ", ".join(f"{reason}: {n}" for reason, n in n_genes.items() if n)
+    relax_filters = (
+        "relax the filters (min_expression, min_samples_expressed, min_sd, max_missing_fraction)"
+    )
+    check_flat_data = (
+        "check that the matrix holds the intended values and that the sample sheet's time "
+        "column assigns the samples to different times"
+    )
+    flat_steps_after = ("low_variability", "not_in_top_variable")
+    if n_genes["flat"] == 0 or any(n_genes[reason] for reason in flat_steps_after):
+        return GloamError(f"no gene is left after preparation ({counts}); {relax_filters}")
+    if n_genes["flat"] == sum(n_genes.values()):
+        return GloamError(
+            f"no gene is left after preparation ({counts}): every gene is flat, with the same "
+            "value at every time point, and flat genes are always dropped whatever the "
+            f"settings; {check_flat_data}"
+        )
+    return GloamError(
+        f"no gene is left after preparation ({counts}): every gene that passed the filters "
+        f"is flat, with the same value at every time point; {check_flat_data}, or "
+        f"{relax_filters} to keep genes that vary"
+    )
+
+
 def prepare_expression(
     matrix: pd.DataFrame, sheet: pd.DataFrame, settings: PrepareSettings | None = None
 ) -> PreparedData:
@@ -862,15 +899,7 @@ def prepare_expression(
     )
     kept = status == KEPT
     if not kept.any():
-        counts = ", ".join(
-            f"{reason}: {n}"
-            for reason, n in zip(summary["reason"], summary["n_genes"], strict=True)
-            if n
-        )
-        raise GloamError(
-            f"no gene is left after preparation ({counts}); relax the filters "
-            "(min_expression, min_samples_expressed, min_sd, max_missing_fraction)"
-        )
+        raise _no_gene_left_error(summary)
 
     zscores, _, _ = zscore_rows(profiles[kept])
     kept_genes = pd.Index(genes[kept], name="gene")
