@@ -198,3 +198,22 @@ def test_fuzzifier_stage_warns_when_it_lowers_n_clusters_check(tmp_path):
     assert math.isfinite(m) and m > 1
     choice = json.loads((tmp_path / "fuzzifier.json").read_text(encoding="utf-8"))
     assert choice["n_clusters_check"] == 9
+
+
+def test_a_shortened_option_name_is_refused_not_guessed(prepared, tmp_path, capsys):
+    out = tmp_path / "out"
+    with pytest.raises(SystemExit) as stop:
+        main(
+            [
+                "cluster",
+                "--prepared",
+                str(prepared["all"]),
+                "--out-dir",
+                str(out),
+                "--cluster",
+                "2-3",
+            ]
+        )
+    assert stop.value.code == 2
+    assert "unrecognized arguments: --cluster 2-3" in capsys.readouterr().err
+    assert _files_under(out) == []

@@ -83,6 +83,7 @@ def _check_out_dir(out_dir: Path) -> None:
 def _add_prepare(subparsers: argparse._SubParsersAction) -> None:
     parser = subparsers.add_parser(
         "prepare",
+        allow_abbrev=False,  # a shortened option name is refused, never guessed
         help="validate, normalise, filter and standardise an expression matrix",
         description=(
             "Turn a genes x samples matrix and a sample sheet into standardised genes x "
@@ -161,6 +162,7 @@ def _run_prepare(args: argparse.Namespace) -> int:
 def _add_demo(subparsers: argparse._SubParsersAction) -> None:
     parser = subparsers.add_parser(
         "demo",
+        allow_abbrev=False,  # a shortened option name is refused, never guessed
         help="write the invented cold-response demo data (counts, sample sheet, truth)",
         description=(
             "Simulate the built-in demo: leaves of an invented alpine herb moved to 4 degC, "
@@ -204,6 +206,7 @@ def _cluster_range(text: str) -> list[int]:
 def _add_cluster(subparsers: argparse._SubParsersAction) -> None:
     parser = subparsers.add_parser(
         "cluster",
+        allow_abbrev=False,  # a shortened option name is refused, never guessed
         help="cluster a prepared matrix: fuzzifier, scan over c, selection, consensus, exports",
         description=(
             "Run every clustering stage on one prepared.h5ad (from `gloam prepare`) in this "
@@ -379,6 +382,7 @@ def _run_cluster(args: argparse.Namespace) -> int:
 def _add_run(subparsers: argparse._SubParsersAction) -> None:
     parser = subparsers.add_parser(
         "run",
+        allow_abbrev=False,  # a shortened option name is refused, never guessed
         help="run the Snakemake workflow (the demo unless the config says otherwise)",
         description=(
             "Run the gloam Snakemake workflow of a checkout: `gloam run --cores 2` in the "
@@ -425,6 +429,7 @@ def build_parser() -> argparse.ArgumentParser:
     """The ``gloam`` argument parser with every subcommand."""
     parser = argparse.ArgumentParser(
         prog="gloam",
+        allow_abbrev=False,
         description="Soft (fuzzy c-means) clustering of gene-expression time courses.",
     )
     parser.add_argument("--version", action="version", version=f"gloam {__version__}")
