@@ -217,3 +217,18 @@ def test_a_shortened_option_name_is_refused_not_guessed(prepared, tmp_path, caps
     assert stop.value.code == 2
     assert "unrecognized arguments: --cluster 2-3" in capsys.readouterr().err
     assert _files_under(out) == []
+
+
+def test_rule_logs_show_gloam_warnings_as_one_line(tmp_path):
+    """Inside a workflow job, gloam's own warnings reach the rule's log as one line, as in
+    the command line; other warnings keep Python's format."""
+    import warnings
+
+    log = tmp_path / "logs" / "prepare.log"
+    with stages.rule_environment(log, 1), warnings.catch_warnings():
+        warnings.simplefilter("always")
+        warnings.warn("n_clusters_check was lowered to 9", GloamWarning, stacklevel=1)
+        warnings.warn("a library's own note", UserWarning, stacklevel=1)
+    lines = log.read_text(encoding="utf-8").splitlines()
+    assert lines[0] == "gloam: warning: n_clusters_check was lowered to 9"
+    assert "UserWarning: a library's own note" in lines[1]

@@ -14,10 +14,9 @@ import sys
 import warnings
 from collections.abc import Callable, Sequence
 from pathlib import Path
-from typing import TextIO
 
 from gloam import __version__
-from gloam.errors import GloamError, GloamWarning, report_and_exit
+from gloam.errors import GloamError, report_and_exit, show_warning
 
 __all__ = ["main", "build_parser", "PREPARE_OUTPUTS"]
 
@@ -439,24 +438,6 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
-_default_show_warning = warnings.showwarning
-
-
-def _show_warning(
-    message: Warning | str,
-    category: type[Warning],
-    filename: str,
-    lineno: int,
-    file: TextIO | None = None,
-    line: str | None = None,
-) -> None:
-    # The project's own warnings are for the user: one line, no source location.
-    if issubclass(category, GloamWarning):
-        print(f"gloam: warning: {message}", file=sys.stderr)
-    else:
-        _default_show_warning(message, category, filename, lineno, file, line)
-
-
 def main(argv: Sequence[str] | None = None) -> int:
     """Entry point of the ``gloam`` console script; returns the exit status.
 
@@ -465,7 +446,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     """
     args = build_parser().parse_args(argv)
     with warnings.catch_warnings():
-        warnings.showwarning = _show_warning
+        warnings.showwarning = show_warning
         try:
             return int(args.run(args))
         except GloamError as error:

@@ -8,8 +8,9 @@ single line on stderr and exit with status 2; they never show a traceback for it
 from __future__ import annotations
 
 import sys
+import warnings
 from collections.abc import Callable
-from typing import NoReturn
+from typing import NoReturn, TextIO
 
 __all__ = [
     "GloamError",
@@ -17,6 +18,7 @@ __all__ = [
     "ConvergenceWarning",
     "exit_on_user_error",
     "report_and_exit",
+    "show_warning",
 ]
 
 USER_ERROR_EXIT_CODE = 2
@@ -50,3 +52,23 @@ def exit_on_user_error(function: Callable[[], object]) -> object:
         return function()
     except GloamError as error:
         report_and_exit(error)
+
+
+def show_warning(
+    message: Warning | str,
+    category: type[Warning],
+    filename: str,
+    lineno: int,
+    file: TextIO | None = None,
+    line: str | None = None,
+) -> None:
+    """A ``warnings.showwarning`` that writes gloam's own warnings as one line.
+
+    :class:`GloamWarning` is for the user: ``gloam: warning: <message>`` on stderr, without
+    the source location. Other warnings keep Python's usual format.
+    """
+    stream = file if file is not None else sys.stderr
+    if issubclass(category, GloamWarning):
+        stream.write(f"gloam: warning: {message}\n")
+    else:
+        stream.write(warnings.formatwarning(message, category, filename, lineno, line))

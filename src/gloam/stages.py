@@ -54,7 +54,7 @@ from typing import Any, TextIO
 import numpy as np
 import pandas as pd
 
-from gloam.errors import GloamError, GloamWarning
+from gloam.errors import GloamError, GloamWarning, show_warning
 from gloam.io import atomic_output, write_table
 
 __all__ = [
@@ -130,7 +130,8 @@ def rule_environment(log_path: PathLike, threads: int) -> Iterator[None]:
 
         numba.set_num_threads(min(threads, numba.config.NUMBA_NUM_THREADS))
     Path(log_path).parent.mkdir(parents=True, exist_ok=True)
-    with open(log_path, "w", encoding="utf-8") as log:
+    with open(log_path, "w", encoding="utf-8") as log, warnings.catch_warnings():
+        warnings.showwarning = show_warning  # gloam's own warnings as one line
         tee = _Tee(log, sys.__stderr__ or log)
         with contextlib.redirect_stderr(tee), threadpool_limits(limits=threads):  # type: ignore[arg-type]
             try:
