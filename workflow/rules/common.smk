@@ -154,7 +154,10 @@ def _check_dataset_files(table, path):
 
 DATASETS = _read_datasets(config["datasets"])
 validated(DATASETS, "datasets.schema.yaml", f"datasets table {config['datasets']!r}")
-_check_dataset_files(DATASETS, config["datasets"])
+# Checked by the controlling Snakemake only: each cluster job parses this file again, and 14,400
+# jobs each looking up every dataset's files would load a shared file system for nothing.
+if getattr(workflow, "is_main_process", True):
+    _check_dataset_files(DATASETS, config["datasets"])
 
 
 def _merged_settings(variant, overrides):
