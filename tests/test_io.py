@@ -178,6 +178,18 @@ def test_rows_with_fewer_or_more_fields_than_the_header_are_refused(tmp_path, na
     assert "exactly one value per sample" in str(caught.value)
 
 
+def test_a_sample_sheet_row_with_a_missing_field_is_refused(tmp_path):
+    text = "sample\ttime\treplicate\ns1\t0\t1\ns2\t2\ns3\t4\t1\n"
+    path = write_text(tmp_path / "samples.tsv", text)
+    with pytest.raises(
+        GloamError, match="line 3 \\(starting 's2'\\) has 2 fields but the header has 3"
+    ):
+        read_sample_sheet(path)
+    # An empty cell of an optional column is not a short row.
+    sheet = read_sample_sheet(write_text(tmp_path / "ok.tsv", "sample\ttime\treplicate\ns1\t0\t\n"))
+    assert sheet["sample"].tolist() == ["s1"]
+
+
 def test_empty_cells_are_missing_values_not_short_rows(tmp_path):
     text = 'gene,a,b,c\r\ng1,,2,3\r\n\r\n"g,2","1",5,\r\n'
     matrix = read_matrix(write_text(tmp_path / "m.csv", text))

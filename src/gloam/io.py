@@ -235,7 +235,9 @@ def _quoted_field_pattern(separator: str) -> str:
     return f'(?:^|(?<={escaped}))"(?:[^"]|"")*"(?={escaped}|$)'
 
 
-def _check_field_counts(text: str, separator: str, n_fields: int, path: Path) -> None:
+def _check_field_counts(
+    text: str, separator: str, n_fields: int, path: Path, what: str = "matrix"
+) -> None:
     """Refuse data lines with more or fewer fields than the header (ragged rows).
 
     pandas pads a short row with empty cells, which would then read as missing values, so
@@ -262,11 +264,19 @@ def _check_field_counts(text: str, separator: str, n_fields: int, path: Path) ->
         return
     first = int(ragged[0])
     fields = next(csv.reader([lines.iloc[first]], delimiter=separator))
+    if what == "matrix":
+        row, fix = (
+            f"gene {fields[0].strip()!r}",
+            "give every row its gene ID and exactly one value per sample",
+        )
+        empty = "leave a cell empty or write NA for a missing value"
+    else:
+        row, fix = f"starting {fields[0].strip()!r}", "give every row one value per column"
+        empty = "leave a cell of an optional column empty if it does not apply"
     raise GloamError(
-        f"matrix file {str(path)!r}: line {first + 2} (gene {fields[0].strip()!r}) has "
-        f"{len(fields)} fields but the header has {n_fields} ({ragged.size} such line(s)); "
-        f"give every row its gene ID and exactly one value per sample, separated by "
-        f"{_separator_name(separator)} (leave a cell empty or write NA for a missing value)"
+        f"{what} file {str(path)!r}: line {first + 2} ({row}) has {len(fields)} fields but "
+        f"the header has {n_fields} ({ragged.size} such line(s)); {fix}, separated by "
+        f"{_separator_name(separator)} ({empty})"
     )
 
 
@@ -483,7 +493,8 @@ def read_sample_sheet(path: str | os.PathLike[str]) -> pd.DataFrame:
     ------
     GloamError
         Missing file, unknown extension, damaged or incomplete ``.gz`` file, missing
-        ``sample``/``time`` column, a column named twice, no rows, empty or duplicate sample
+        ``sample``/``time`` column, a column named twice, a row with more or fewer fields
+        than the header, no rows, empty or duplicate sample
         names, a time that is not a finite number (sample named), an empty condition, or
         the same replicate named twice for one condition and time.
     """
@@ -504,6 +515,7 @@ def read_sample_sheet(path: str | os.PathLike[str]) -> pd.DataFrame:
             "it needs columns sample and time, optionally replicate and condition, "
             f"separated by {_separator_name(separator)}"
         )
+    _check_field_counts(text, separator, len(header), path, "sample sheet")
     try:
         table = pd.read_csv(
             io.StringIO(text),
