@@ -232,3 +232,12 @@ def test_rule_logs_show_gloam_warnings_as_one_line(tmp_path):
     lines = log.read_text(encoding="utf-8").splitlines()
     assert lines[0] == "gloam: warning: n_clusters_check was lowered to 9"
     assert "UserWarning: a library's own note" in lines[1]
+
+
+def test_a_prepared_file_that_is_not_h5ad_says_which_file_to_give(tmp_path, capsys):
+    not_h5ad = tmp_path / "prepared.tsv"
+    not_h5ad.write_text("gene\tt0\ng1\t0.5\n", encoding="utf-8")
+    out = tmp_path / "out"
+    line = _refused(_cluster(not_h5ad, out, *QUICK), capsys)
+    assert "cannot be read as .h5ad" in line and "prepared.h5ad that gloam prepare" in line
+    assert _files_under(out) == []

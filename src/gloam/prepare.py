@@ -1044,7 +1044,10 @@ def read_prepared(h5ad_path: str | os.PathLike[str]) -> tuple[pd.DataFrame, pd.D
     try:
         data = anndata.read_h5ad(path)
     except Exception as error:  # h5py/anndata raise many unrelated types for a bad file
-        raise GloamError(f"prepared matrix {str(path)!r} cannot be read ({error})") from error
+        raise GloamError(
+            f"prepared matrix {str(path)!r} cannot be read as .h5ad ({error}); give the "
+            "prepared.h5ad that gloam prepare (or the workflow's prepare step) wrote"
+        ) from error
     needed = {"time", "condition"}
     if UNS_KEY not in data.uns or not needed <= set(data.obs.columns):
         raise GloamError(
