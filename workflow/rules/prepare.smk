@@ -7,9 +7,7 @@
 
 rule demo_data:
     output:
-        counts=f"{DEMO_DIR}/counts.tsv",
-        samples=f"{DEMO_DIR}/samples.tsv",
-        truth=f"{DEMO_DIR}/truth.tsv",
+        **DEMO_FILES,
     params:
         seed=config["demo"]["seed"],
         n_genes=config["demo"]["n_genes"],
