@@ -4,17 +4,17 @@ from gloam.errors import exit_on_user_error
 from gloam.stages import export_core_genes, rule_environment
 
 job = snakemake  # noqa: F821 -- injected by Snakemake's script directive
+out = job.output
 
 with rule_environment(job.log[0], job.threads):
     exit_on_user_error(
         lambda: export_core_genes(
             job.input.prepared,
-            job.input.memberships,
-            job.input.centroids,
+            job.input.consensus,
             job.params.thresholds,
             job.params.time_unit,
-            genesets=job.output.genesets,
-            profiles_figure=(job.output.profiles_png, job.output.profiles_pdf),
+            genesets=out.genesets,
+            profiles_figure=(out.profiles_png, out.profiles_pdf, out.profiles_svg),
             prefix=job.wildcards.run,
         )
     )

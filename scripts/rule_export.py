@@ -18,9 +18,11 @@ with rule_environment(job.log[0], job.threads):
             job.params.settings,
             memberships=out.memberships,
             centroids=out.centroids,
+            clusters=out.clusters,
+            robustness=out.robustness,
             h5ad=out.h5ad,
-            validity_figure=(out.validity_png, out.validity_pdf),
-            fuzzifier_figure=(out.fuzzifier_png, out.fuzzifier_pdf),
-            correlation_figure=(out.correlation_png, out.correlation_pdf),
+            validity_figure=(out.validity_png, out.validity_pdf, out.validity_svg),
+            fuzzifier_figure=(out.fuzzifier_png, out.fuzzifier_pdf, out.fuzzifier_svg),
+            overview_figure=(out.overview_png, out.overview_pdf, out.overview_svg),
         )
     )

@@ -1,6 +1,6 @@
-"""Snakemake rule ``prepare``: validate, normalise, filter and standardise one run's matrix,
+"""Snakemake rule ``prepare``: validate, normalise, select and standardise one run's matrix,
 then choose the fuzzifier m for it, record the randomised-data curve, and write the scan
-jobs' input (the matrix with its m)."""
+jobs' input (the matrix with its m and the replicates for resampling)."""
 
 from gloam.errors import exit_on_user_error
 from gloam.stages import (
@@ -15,7 +15,7 @@ job = snakemake  # noqa: F821 -- injected by Snakemake's script directive
 
 def prepare_and_choose_m() -> None:
     # m is chosen from the z-scores just prepared, not from the file read back.
-    zscores = run_prepare(
+    prepared = run_prepare(
         job.input.matrix,
         job.input.samples,
         job.params.settings,
@@ -25,13 +25,21 @@ def prepare_and_choose_m() -> None:
         summary=job.output.summary,
     )
     m = write_fuzzifier_choice(
-        zscores,
+        prepared.zscores,
         job.params.fuzzifier,
         job.params.seed,
         job.output.fuzzifier,
         job.output.fuzzifier_curve,
     )
-    write_scan_input(zscores, m, job.output.scan_input)
+    write_scan_input(
+        prepared.zscores,
+        m,
+        job.output.scan_input,
+        columns=prepared.columns,
+        replicates=prepared.replicates,
+        samples=prepared.samples,
+        selection_method=prepared.selection_method,
+    )
 
 
 with rule_environment(job.log[0], job.threads):

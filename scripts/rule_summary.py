@@ -11,7 +11,7 @@ with rule_environment(job.log[0], job.threads):
             job.params.runs,
             list(job.input.fuzzifier),
             list(job.input.selection),
-            list(job.input.memberships),
+            list(job.input.consensus),
             job.params.thresholds,
             job.output.summary,
         )

@@ -39,7 +39,7 @@ def prepared(tmp_path_factory) -> dict[str, Path]:
     root = tmp_path_factory.mktemp("prepared")
     main(["demo", "--out-dir", str(root / "demo"), "--n-genes", "300"])
     return {
-        "all": _prepare(root / "demo", root / "all"),
+        "all": _prepare(root / "demo", root / "all", "--gene-selection", "all"),
         "3 genes": _prepare(root / "demo", root / "three", "--top-variable", "3"),
         "2 genes": _prepare(root / "demo", root / "two", "--top-variable", "2"),
     }

@@ -50,6 +50,7 @@ def test_prepare_writes_the_four_result_files(tmp_path):
     result = run_gloam(
         "prepare", "--matrix", matrix, "--samples", sheet, "--value-type", "counts",
         "--out-dir", out, "--min-samples-expressed", "0",
+        "--normalisation", "cpm", "--gene-selection", "all",
     )  # fmt: skip
     assert result.returncode == 0, result.stderr
     assert sorted(path.name for path in out.iterdir()) == sorted(RESULT_FILES)
@@ -75,6 +76,7 @@ def test_settings_file_is_read_and_options_override_it(tmp_path):
     result = run_gloam(
         "prepare", "--matrix", matrix, "--samples", sheet, "--value-type", "counts",
         "--out-dir", out, "--settings", settings, "--top-variable", "5",
+        "--gene-selection", "all",
     )  # fmt: skip
     assert result.returncode == 0, result.stderr
     report = pd.read_csv(out / "gene_report.tsv", sep="\t")
@@ -86,7 +88,7 @@ def test_unlisted_samples_and_fractional_counts_are_one_line_warnings(tmp_path):
     (counts + 0.5).assign(extra=1).to_csv(matrix, sep="\t")
     result = run_gloam(
         "prepare", "--matrix", matrix, "--samples", sheet, "--value-type", "counts",
-        "--out-dir", tmp_path / "out",
+        "--out-dir", tmp_path / "out", "--gene-selection", "all",
     )  # fmt: skip
     assert result.returncode == 0, result.stderr
     lines = result.stderr.strip().splitlines()

@@ -35,6 +35,16 @@ from gloam.prepare import (
 )
 
 
+def _steps(**settings) -> PrepareSettings:
+    """Settings that isolate one preparation step: CPM for counts and no test for change
+    over time (the defaults, median-of-ratios and the responsive selection, have tests of
+    their own below and in tests/test_responsive.py)."""
+    settings.setdefault("gene_selection", "all")
+    if settings.get("value_type", "counts") == "counts":
+        settings.setdefault("normalisation", "cpm")
+    return PrepareSettings(**settings)
+
+
 def make_sheet(times, replicates=1, conditions=("all",)) -> pd.DataFrame:
     rows = [
         {"sample": f"{c}_t{t}_r{r}", "time": float(t), "replicate": str(r), "condition": c}
@@ -101,7 +111,7 @@ def test_prepared_log_means_equal_direct_numpy_cpm_log2_replicate_mean():
     """Pipeline check against a direct NumPy computation of mean(log2(CPM + 1))."""
     sheet = make_sheet([0, 1, 2], replicates=2)
     counts = make_counts(sheet, n_genes=12)
-    prepared = prepare_expression(counts, sheet, PrepareSettings(min_samples_expressed=0))
+    prepared = prepare_expression(counts, sheet, _steps(min_samples_expressed=0))
     values = counts.to_numpy()
     log_cpm = np.log2(values / values.sum(axis=0) * 1e6 + 1.0)
     expected = np.column_stack([log_cpm[:, 2 * t : 2 * t + 2].mean(axis=1) for t in range(3)])
@@ -115,7 +125,7 @@ def test_median_ratio_pipeline_divides_by_pydeseq2_size_factors():
 
     sheet = make_sheet([0, 1, 2, 3])
     counts = make_counts(sheet, n_genes=30, seed=5)
-    settings = PrepareSettings(normalisation="median_ratio", min_samples_expressed=0)
+    settings = _steps(normalisation="median_ratio", min_samples_expressed=0)
     prepared = prepare_expression(counts, sheet, settings)
     normalised, _ = deseq2_norm(counts.to_numpy().T)
     expected = np.log2(normalised.T + 1.0)
@@ -127,7 +137,7 @@ def test_normalisation_none_logs_raw_counts():
     """log2(count + pseudocount) directly by NumPy, no library-size scaling."""
     sheet = make_sheet([0, 1, 2])
     counts = make_counts(sheet, n_genes=10)
-    settings = PrepareSettings(normalisation="none", pseudocount=0.5, min_samples_expressed=0)
+    settings = _steps(normalisation="none", pseudocount=0.5, min_samples_expressed=0)
     prepared = prepare_expression(counts, sheet, settings)
     expected = np.log2(counts.loc[prepared.log_means.index].to_numpy() + 0.5)
     assert_allclose(prepared.log_means.to_numpy(), expected, rtol=1e-12)
@@ -150,7 +160,7 @@ def test_zscores_have_mean_zero_and_sample_sd_one():
 
 def test_prepared_zscores_are_standardised_with_ddof_one():
     sheet = make_sheet([0, 1, 2, 4, 8], replicates=2)
-    prepared = prepare_expression(make_counts(sheet), sheet)
+    prepared = prepare_expression(make_counts(sheet), sheet, _steps())
     z = prepared.zscores.to_numpy()
     assert_allclose(z.mean(axis=1), 0.0, atol=1e-12)
     assert_allclose(z.std(axis=1, ddof=1), 1.0, rtol=1e-12)
@@ -168,8 +178,8 @@ def test_flat_genes_are_dropped_without_division_by_zero():
     )
     with warnings.catch_warnings():
         warnings.simplefilter("error")  # a division by zero would warn
-        prepared = prepare_expression(counts, sheet, PrepareSettings(min_samples_expressed=0))
-        prepared_log = prepare_expression(log_values, log_sheet, PrepareSettings(value_type="log"))
+        prepared = prepare_expression(counts, sheet, _steps(min_samples_expressed=0))
+        prepared_log = prepare_expression(log_values, log_sheet, _steps(value_type="log"))
     report = prepared.gene_report.set_index("gene")
     assert report.loc["g0", "status"] == "flat"
     assert "g0" not in prepared.zscores.index
@@ -214,7 +224,7 @@ def test_fill_from_replicates_then_interpolation_worked_by_hand():
         index=pd.Index(["rep", "interp", "edge", "full"], name="gene"),
         columns=sheet["sample"].to_list(),
     )
-    settings = PrepareSettings(value_type="log", max_missing_fraction=0.5)
+    settings = _steps(value_type="log", max_missing_fraction=0.5)
     prepared = prepare_expression(values, sheet, settings)
     report = prepared.gene_report.set_index("gene")
     assert report["n_filled"].tolist() == [1, 2, 2, 0]
@@ -246,12 +256,12 @@ def test_genes_with_too_many_missing_or_a_missing_condition_are_dropped():
         columns=sheet["sample"].to_list(),
     )
     report = prepare_expression(
-        values, sheet, PrepareSettings(value_type="log", max_missing_fraction=0.4)
+        values, sheet, _steps(value_type="log", max_missing_fraction=0.4)
     ).gene_report.set_index("gene")
     assert report["status"].tolist() == ["kept", "too_many_missing", "too_many_missing"]
     assert report.loc["holes", "n_filled"] == 0
     report = prepare_expression(
-        values, sheet, PrepareSettings(value_type="log", max_missing_fraction=0.6)
+        values, sheet, _steps(value_type="log", max_missing_fraction=0.6)
     ).gene_report.set_index("gene")
     assert report.loc["holes", "status"] == "kept"
     assert report.loc["holes", "n_filled"] == 3
@@ -270,7 +280,7 @@ def test_expression_filter_counts_samples_at_or_above_the_cpm_floor():
         columns=sheet["sample"].to_list(),
     )
     assert_allclose(counts.sum(axis=0).to_numpy(), 1e6)
-    settings = PrepareSettings(min_expression=5.0, min_samples_expressed=2)
+    settings = _steps(min_expression=5.0, min_samples_expressed=2)
     report = prepare_expression(counts, sheet, settings).gene_report.set_index("gene")
     assert report.loc["two_of_three", "status"] == "kept"
     assert report.loc["two_of_three", "n_samples_expressed"] == 2  # 10 and 5 (>= floor)
@@ -286,7 +296,7 @@ def test_variability_filters_min_sd_then_top_n():
         index=pd.Index(["sd05", "sd1", "sd2", "sd3"], name="gene"),
         columns=sheet["sample"].to_list(),
     )
-    settings = PrepareSettings(value_type="log", min_sd=0.75, top_variable=2)
+    settings = _steps(value_type="log", min_sd=0.75, top_variable=2)
     prepared = prepare_expression(values, sheet, settings)
     report = prepared.gene_report.set_index("gene")
     assert_allclose(report["sd"].to_numpy(), [0.5, 1.0, 2.0, 3.0], rtol=1e-12)
@@ -311,7 +321,7 @@ def test_report_and_summary_account_for_every_input_gene():
     sheet = make_sheet([0, 1, 2, 3], replicates=2)
     counts = make_counts(sheet, n_genes=60, seed=2)
     counts.iloc[:5] = 0.0
-    prepared = prepare_expression(counts, sheet, PrepareSettings(top_variable=20))
+    prepared = prepare_expression(counts, sheet, _steps(top_variable=20))
     report = prepared.gene_report
     assert report["gene"].tolist() == counts.index.tolist()
     assert report.columns.tolist() == [
@@ -322,6 +332,10 @@ def test_report_and_summary_account_for_every_input_gene():
         "n_samples_expressed",
         "mean_log",
         "sd",
+        "log2_range",
+        "response_statistic",
+        "response_p_value",
+        "response_fdr",
     ]
     summary = prepared.summary.set_index("reason")["n_genes"]
     assert summary.index.tolist() == [*DROP_REASONS, "kept"]
@@ -336,7 +350,7 @@ def test_report_and_summary_account_for_every_input_gene():
 
 def test_concatenated_conditions_are_ordered_condition_then_time():
     sheet = make_sheet([4, 0, 1], replicates=2, conditions=("heat", "ctl"))
-    prepared = prepare_expression(make_counts(sheet), sheet)
+    prepared = prepare_expression(make_counts(sheet), sheet, _steps())
     assert prepared.zscores.columns.tolist() == [
         "heat_t0",
         "heat_t1",
@@ -353,7 +367,7 @@ def test_concatenated_conditions_are_ordered_condition_then_time():
 def test_separate_conditions_prepare_the_selected_one_with_shared_normalisation():
     sheet = make_sheet([0, 1, 2.5], replicates=2, conditions=("ctl", "heat"))
     counts = make_counts(sheet, n_genes=20)
-    settings = PrepareSettings(conditions="separate", condition="heat", min_samples_expressed=0)
+    settings = _steps(conditions="separate", condition="heat", min_samples_expressed=0)
     prepared = prepare_expression(counts, sheet, settings)
     assert prepared.zscores.columns.tolist() == ["t0", "t1", "t2.5"]
     assert set(prepared.columns["condition"]) == {"heat"}
@@ -369,10 +383,10 @@ def test_separate_conditions_prepare_the_selected_one_with_shared_normalisation(
 def test_separate_without_a_condition_needs_one_when_there_are_several():
     sheet = make_sheet([0, 1, 2], conditions=("ctl", "heat"))
     with pytest.raises(GloamError, match="has 2: \\['ctl', 'heat'\\]; set condition"):
-        prepare_expression(make_counts(sheet), sheet, PrepareSettings(conditions="separate"))
+        prepare_expression(make_counts(sheet), sheet, _steps(conditions="separate"))
     with pytest.raises(GloamError, match="condition='cold' is not a condition"):
         prepare_expression(
-            make_counts(sheet), sheet, PrepareSettings(conditions="separate", condition="cold")
+            make_counts(sheet), sheet, _steps(conditions="separate", condition="cold")
         )
 
 
@@ -395,26 +409,26 @@ def test_bad_values_are_user_errors(change, settings, message):
     counts = make_counts(sheet, n_genes=6)
     change(counts)
     with pytest.raises(GloamError, match=message):
-        prepare_expression(counts, sheet, PrepareSettings(**settings))
+        prepare_expression(counts, sheet, _steps(**settings))
 
 
 def test_non_integer_counts_warn_and_continue():
     sheet = make_sheet([0, 1, 2])
     counts = make_counts(sheet, n_genes=6) + 0.25
     with pytest.warns(GloamWarning, match="18 non-integer values"):
-        prepared = prepare_expression(counts, sheet, PrepareSettings(min_samples_expressed=0))
+        prepared = prepare_expression(counts, sheet, _steps(min_samples_expressed=0))
     assert prepared.zscores.shape[1] == 3
 
 
 def test_fewer_than_three_time_points_is_an_error():
     sheet = make_sheet([0, 6], replicates=3)
     with pytest.raises(GloamError, match="cover 2 distinct time point\\(s\\) \\(\\['0', '6'\\]\\)"):
-        prepare_expression(make_counts(sheet), sheet)
+        prepare_expression(make_counts(sheet), sheet, _steps())
     sheet = pd.concat(
         [make_sheet([0, 1, 2], conditions=("a",)), make_sheet([0, 1], conditions=("b",))]
     )
     with pytest.raises(GloamError, match="of condition 'b' cover 2"):
-        prepare_expression(make_counts(sheet), sheet)
+        prepare_expression(make_counts(sheet), sheet, _steps())
 
 
 def test_sheet_samples_must_be_in_the_matrix_and_extra_matrix_samples_warn():
@@ -428,7 +442,7 @@ def test_sheet_samples_must_be_in_the_matrix_and_extra_matrix_samples_warn():
     with pytest.warns(
         GloamWarning, match="not in the sample sheet and are ignored: \\['unlisted'\\]"
     ):
-        prepared = prepare_expression(counts, sheet, PrepareSettings(min_samples_expressed=0))
+        prepared = prepare_expression(counts, sheet, _steps(min_samples_expressed=0))
     assert "unlisted" not in prepared.raw.columns
 
 
@@ -436,16 +450,16 @@ def test_empty_and_duplicated_matrices_are_errors():
     sheet = make_sheet([0, 1, 2])
     counts = make_counts(sheet)
     with pytest.raises(GloamError, match="the matrix is empty \\(0 genes"):
-        prepare_expression(counts.iloc[:0], sheet)
+        prepare_expression(counts.iloc[:0], sheet, _steps())
     with pytest.raises(GloamError, match="duplicate gene IDs \\(e.g. \\['g0'\\]\\)"):
-        prepare_expression(pd.concat([counts, counts.iloc[:1]]), sheet)
+        prepare_expression(pd.concat([counts, counts.iloc[:1]]), sheet, _steps())
 
 
 def test_no_gene_left_reports_the_reasons():
     sheet = make_sheet([0, 1, 2])
     counts = make_counts(sheet, n_genes=5)
     with pytest.raises(GloamError, match="no gene is left after preparation \\(low_expression: 5"):
-        prepare_expression(counts, sheet, PrepareSettings(min_expression=1e7))
+        prepare_expression(counts, sheet, _steps(min_expression=1e7))
 
 
 def test_all_flat_genes_point_at_the_data_not_the_filters():
@@ -457,7 +471,7 @@ def test_all_flat_genes_point_at_the_data_not_the_filters():
         columns=sheet["sample"].to_list(),
     )
     with pytest.raises(GloamError, match="\\(flat: 3\\): every gene is flat") as caught:
-        prepare_expression(values, sheet, PrepareSettings(value_type="log"))
+        prepare_expression(values, sheet, _steps(value_type="log"))
     message = str(caught.value)
     assert "flat genes are always dropped" in message
     assert "sample sheet's time column" in message
@@ -471,7 +485,7 @@ def test_flat_genes_left_after_the_filters_get_both_kinds_of_advice():
         index=pd.Index(["flat", "low"], name="gene"),
         columns=sheet["sample"].to_list(),
     )
-    settings = PrepareSettings(value_type="log", min_expression=1.0, min_samples_expressed=1)
+    settings = _steps(value_type="log", min_expression=1.0, min_samples_expressed=1)
     with pytest.raises(GloamError, match="every gene that passed the filters is flat") as caught:
         prepare_expression(values, sheet, settings)
     message = str(caught.value)
@@ -516,7 +530,8 @@ def test_log_values_accept_no_library_size_normalisation():
 def test_defaults_resolve_by_value_type():
     counts = PrepareSettings()
     log = PrepareSettings(value_type="log")
-    assert (counts.normalisation, counts.min_expression) == ("cpm", 1.0)
+    assert (counts.normalisation, counts.min_expression) == ("median_ratio", 1.0)
+    assert (counts.gene_selection, counts.fdr, counts.min_log2_range) == ("responsive", 0.05, 1.0)
     assert (log.normalisation, log.min_expression) == ("none", None)
     assert not log.expression_filter_on
 
@@ -541,7 +556,7 @@ def make_prepared():
     sheet = make_sheet([0, 1, 2, 5], replicates=2, conditions=("ctl", "heat"))
     counts = make_counts(sheet, n_genes=30)
     counts.index = pd.Index([f"{i:04d}" for i in range(29)] + ["1-Mar"], name="gene")
-    return counts, prepare_expression(counts, sheet)
+    return counts, prepare_expression(counts, sheet, _steps())
 
 
 def output_paths(directory):

@@ -1,4 +1,4 @@
-"""Validity indices and the rule that recommends c.
+"""Validity indices and the rule that judges each c and recommends one.
 
 Sources: Bezdek (1981) "Pattern Recognition with Fuzzy Objective Function Algorithms" for the
 partition coefficient/entropy and their bounds; Xie & Beni (1991) IEEE TPAMI 13:841 for the
@@ -27,11 +27,11 @@ from gloam.fcm import fuzzy_cmeans
 from gloam.validity import (
     VALIDITY_COLUMNS,
     fukuyama_sugeno,
+    judge_n_clusters,
     min_centroid_distance,
     partition_coefficient,
     partition_entropy,
-    recommend_n_clusters,
-    recommendation_reasons,
+    recommended_n_clusters,
     validity_table,
     xie_beni,
 )
@@ -240,118 +240,162 @@ def test_validity_table_rejects_mismatched_keys_and_stability():
         validity_table(X, {})
 
 
-@pytest.mark.parametrize("random_state", [0, 1, 2])
-def test_recommendation_picks_three_for_three_clear_blobs(random_state):
-    """scikit-learn make_blobs (PyPI): three well-separated Gaussian groups; partitions from
-    scikit-fuzzy's cmeans; the rule must recommend c = 3 out of 2..7."""
-    X, _ = make_blobs(
-        n_samples=300,
-        centers=3,
-        n_features=5,
-        cluster_std=1.0,
-        center_box=(-15, 15),
-        random_state=random_state,
+def _criteria_table(c, jaccard, core, correlation, coherence=None):
+    return pd.DataFrame(
+        {
+            "n_clusters": c,
+            "min_jaccard": jaccard,
+            "min_core_genes": core,
+            "max_centroid_correlation": correlation,
+            "min_coherence": [0.8] * len(c) if coherence is None else coherence,
+        }
     )
-    table = validity_table(X, _skfuzzy_partitions(X, range(2, 8)))
-    assert recommend_n_clusters(table) == 3
-    reasons = recommendation_reasons(table)
-    assert reasons["chosen"].sum() == 1
-    assert reasons.loc[reasons["n_clusters"] > 3, "eligible"].eq(False).all()
 
 
-def _table(c, xb, distance):
-    return pd.DataFrame({"n_clusters": c, "xie_beni": xb, "min_centroid_distance": distance})
-
-
-def test_recommendation_takes_the_c_before_the_sharpest_fall():
-    # distance ratios: 0.8 (2->3), 0.2 (3->4), 0.05 (4->5), 0.01 (5->6). Candidates halve the
-    # distance from centroids still apart (previous >= 0.1 of the running maximum 10):
-    # 3->4 and 4->5; 5->6 starts from 0.08, already collapsed. Sharpest: 4->5, so c = 4,
-    # although the Xie–Beni index is smaller at c = 2.
-    table = _table([2, 3, 4, 5, 6], [0.01, 0.20, 0.25, 3.0, 50.0], [10, 8, 1.6, 0.08, 0.0008])
-    assert recommend_n_clusters(table) == 4
-    reasons = recommendation_reasons(table)
-    assert reasons["eligible"].tolist() == [True, True, True, False, False]
-    assert reasons["chosen"].tolist() == [False, False, True, False, False]
-    assert_allclose(reasons["distance_ratio"].to_numpy()[1:], [0.8, 0.2, 0.05, 0.01])
-    # With a stricter candidate ratio only 4->5 and the excluded 5->6 remain: still c = 4.
-    assert recommend_n_clusters(table, collapse_ratio=0.1) == 4
-
-
-def test_recommendation_prefers_a_later_sharper_fall_to_an_earlier_milder_one():
-    # An extra cluster can halve the distance early (2 -> 3 here, ratio 0.45) and the real
-    # collapse come later (5 -> 6, ratio 0.2): the sharper fall wins, c = 5.
-    table = _table(
-        [2, 3, 4, 5, 6, 7], [0.3, 0.5, 0.4, 0.45, 1.7, 1.3], [13.0, 5.9, 5.8, 5.0, 1.0, 1.1]
+def test_the_largest_passing_c_is_recommended_and_failures_are_named():
+    table = _criteria_table(
+        [2, 3, 4, 5, 6],
+        [0.95, 0.9, 0.8, 0.6, 0.5],
+        [300, 120, 40, 4, 2],
+        [0.1, 0.5, 0.7, 0.95, 0.97],
     )
-    assert recommend_n_clusters(table) == 5
+    judged = judge_n_clusters(table, structure_present=True)
+    assert recommended_n_clusters(judged) == 4
+    assert judged["recommended"].tolist() == [False, False, True, False, False]
+    assert judged["passes"].tolist() == [True, True, True, False, False]
+    assert judged.loc[3, "failed"] == "robust,sizeable,distinct"
+    assert judged["coherent"].all()
+    assert "Jaccard 0.60 < 0.75" in judged.loc[3, "reason"]
+    assert "only 4 core genes" in judged.loc[3, "reason"]
+    assert "larger c = 4 passes" in judged.loc[0, "reason"]
 
 
-def test_recommendation_without_collapse_takes_the_smallest_xie_beni_ties_to_smaller_c():
-    table = _table([4, 3, 2], [0.1, 0.1, 0.2], [5.0, 5.0, 5.0])
-    assert recommend_n_clusters(table) == 3
-    reasons = recommendation_reasons(table)
-    assert reasons["eligible"].all()
-    assert "scanning larger" in reasons.loc[reasons["chosen"], "reason"].iloc[0]
+def test_no_structure_means_no_clusters_whatever_the_other_criteria():
+    table = _criteria_table([2, 3], [1.0, 1.0], [500, 500], [0.0, 0.0])
+    judged = judge_n_clusters(table, structure_present=False)
+    assert recommended_n_clusters(judged) == 1
+    assert not judged["recommended"].any()
+    assert (judged["failed"] == "structure").all()
+    assert judged["reason"].str.contains("no evidence of cluster structure").all()
 
 
-def test_recommendation_ignores_steps_from_an_already_zero_distance():
-    # c = 3 already has coinciding centroids: 3 -> 4 (0/0) is not a collapse; 2 -> 3 is.
-    table = _table([2, 3, 4], [0.1, np.inf, np.inf], [4.0, 0.0, 0.0])
-    assert recommend_n_clusters(table) == 2
+def test_a_cluster_gathered_near_the_flat_profile_fails_coherence():
+    """A cluster of genes pointing every way has a centroid near 0: its coherence (squared
+    centroid norm over a gene's squared norm) is about the mean pairwise correlation of its
+    genes, here 0.1, so that c fails even though it is robust and sizeable."""
+    table = _criteria_table([2, 3], [0.9, 0.9], [100, 100], [0.1, 0.2], [0.8, 0.1])
+    judged = judge_n_clusters(table, structure_present=True)
+    assert recommended_n_clusters(judged) == 2
+    assert judged.loc[1, "failed"] == "coherent"
+    assert "coherence 0.10" in judged.loc[1, "reason"]
 
 
-def test_recommendation_with_a_single_row_returns_that_c():
-    assert recommend_n_clusters(_table([5], [0.4], [1.0])) == 5
+def test_coherence_is_the_mean_pairwise_correlation_of_the_members():
+    """For z-scored rows of squared norm n - 1, ||mean x_i||^2 / (n - 1) equals the mean of
+    the pairwise Pearson correlations including the diagonal (algebra of the mean; numpy
+    corrcoef as the reference)."""
+    from gloam.partition import centroid_coherence
+
+    rng = np.random.default_rng(5)
+    X = rng.normal(size=(40, 8)) + np.linspace(-1, 1, 8)
+    X = (X - X.mean(1, keepdims=True)) / X.std(1, ddof=1, keepdims=True)
+    expected = np.corrcoef(X).mean()
+    assert_allclose(centroid_coherence(X, X.mean(0, keepdims=True))[0], expected, rtol=1e-12)
+
+
+def test_no_passing_c_recommends_one():
+    judged = judge_n_clusters(
+        _criteria_table([2, 3], [0.5, 0.4], [500, 500], [0.0, 0.0]), structure_present=True
+    )
+    assert recommended_n_clusters(judged) == 1
+
+
+@settings(max_examples=200, deadline=None)
+@given(
+    st.lists(
+        st.tuples(st.floats(0, 1), st.integers(0, 50), st.floats(-1, 1), st.booleans()),
+        min_size=2,
+        max_size=14,
+    ),
+    st.integers(1, 13),
+    st.booleans(),
+)
+def test_widening_the_scan_changes_the_answer_only_when_a_larger_c_passes(rows, cut, structure):
+    """The property the rule is built for: judging c = 2..k and c = 2..K (K > k) gives the same
+    recommendation unless some c in k+1..K passes, and then it is the largest such c."""
+    cs = list(range(2, 2 + len(rows)))
+    table = _criteria_table(
+        cs,
+        [row[0] if row[3] else np.nan for row in rows],
+        [row[1] for row in rows],
+        [row[2] for row in rows],
+        [row[0] for row in rows],
+    )
+    k = cs[min(cut, len(cs) - 1) - 1]
+    narrow = judge_n_clusters(table[table["n_clusters"] <= k], structure_present=structure)
+    wide = judge_n_clusters(table, structure_present=structure)
+    larger_passing = wide.loc[(wide["n_clusters"] > k) & wide["passes"], "n_clusters"]
+    if len(larger_passing):
+        assert recommended_n_clusters(wide) == larger_passing.max()
+    else:
+        assert recommended_n_clusters(wide) == recommended_n_clusters(narrow)
+    # Each c is judged on its own row: the verdicts of c <= k do not change.
+    assert wide.loc[wide["n_clusters"] <= k, "passes"].tolist() == narrow["passes"].tolist()
 
 
 @pytest.mark.parametrize(
-    "table, ratio",
+    "table, options",
     [
-        (pd.DataFrame({"n_clusters": [2]}), 0.5),
-        (_table([], [], []), 0.5),
-        (_table([2, 2], [0.1, 0.2], [1.0, 1.0]), 0.5),
-        (_table([2, 3], [0.1, 0.2], [1.0, 1.0]), 1.5),
+        (pd.DataFrame({"n_clusters": [2]}), {}),
+        (_criteria_table([], [], [], []), {}),
+        (_criteria_table([2, 2], [1, 1], [10, 10], [0, 0]), {}),
+        (_criteria_table([2], [1], [10], [0]), {"stable_jaccard": 1.5}),
+        (_criteria_table([2], [1], [10], [0]), {"max_centroid_correlation": 2}),
     ],
 )
-def test_recommendation_rejects_unusable_tables(table, ratio):
+def test_judging_rejects_unusable_tables(table, options):
     with pytest.raises(GloamError):
-        recommend_n_clusters(table, collapse_ratio=ratio)
+        judge_n_clusters(table, structure_present=True, **options)
 
 
 # --- with gloam's own engine ------------------------------------------------------------------
 
 
-def _gloam_scan(X, cs, n_starts=5):
-    with warnings.catch_warnings():
-        # Surplus clusters (c > 3 on three blobs) converge slowly; the best start is still used.
-        warnings.simplefilter("ignore", ConvergenceWarning)
-        return {c: fuzzy_cmeans(X, c, 2.0, n_starts=n_starts, rng=0, tol=1e-5) for c in cs}
+def _judged_scan(X, cs, seed=0):
+    from gloam.partition import solve_partition
+
+    rows = []
+    for c in cs:
+        partition = solve_partition(
+            X, c, 2.0, rng=np.random.default_rng(seed), n_starts=5, n_resamples=10
+        )
+        rows.append(partition.metrics)
+    return judge_n_clusters(pd.DataFrame(rows), structure_present=True)
 
 
 @pytest.mark.parametrize("random_state", [3, 4])
-def test_recommendation_on_gloam_partitions_picks_three_for_three_clear_blobs(random_state):
-    """scikit-learn make_blobs (PyPI), three well-separated groups, gloam's engine: c = 3."""
+def test_gloam_partitions_of_three_clear_blobs_recommend_three(random_state):
+    """scikit-learn make_blobs (PyPI): three well-separated groups, profiles z-scored as gloam
+    does; c = 4 and more split a group into two nearly identical responses, so c = 3."""
     X, _ = make_blobs(
         n_samples=300,
         centers=3,
-        n_features=5,
+        n_features=6,
         cluster_std=1.0,
         center_box=(-15, 15),
         random_state=random_state,
     )
-    results = _gloam_scan(X, range(2, 8))
-    table = validity_table(X, {c: result.best() for c, result in results.items()})
-    assert recommend_n_clusters(table) == 3
+    X = (X - X.mean(axis=1, keepdims=True)) / X.std(axis=1, ddof=1, keepdims=True)
+    judged = _judged_scan(X, range(2, 7))
+    assert recommended_n_clusters(judged) == 3, judged[["n_clusters", "failed"]]
 
 
-def test_iris_validity_is_sane():
-    """Fisher's iris data (shipped by scikit-learn). Validity studies report that indices
-    choose 2 or 3 clusters for iris, because versicolor and virginica overlap while setosa
-    stands apart (from memory: Pal & Bezdek 1995, IEEE Trans. Fuzzy Systems 3:370)."""
+def test_iris_objective_falls_with_c():
+    """Fisher's iris data (shipped by scikit-learn): the optimal J_m cannot rise with c
+    (Bezdek 1981); best-of-10 starts should show it."""
     X, _ = load_iris(return_X_y=True)
-    results = _gloam_scan(X, range(2, 7), n_starts=10)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", ConvergenceWarning)
+        results = {c: fuzzy_cmeans(X, c, 2.0, n_starts=10, rng=0, tol=1e-5) for c in range(2, 7)}
     table = validity_table(X, {c: result.best() for c, result in results.items()})
-    assert recommend_n_clusters(table) in (2, 3)
-    # The optimal J_m cannot rise with c (Bezdek 1981); best-of-10 starts should show it.
     assert table["objective"].is_monotonic_decreasing

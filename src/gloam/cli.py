@@ -30,7 +30,11 @@ PREPARE_OUTPUTS = {
 
 # Command-line option -> preparation setting (same name with "-" for "_").
 _PREPARE_SETTINGS = (
-    ("--normalisation", str, "cpm | median_ratio | none (default: cpm for counts, none for log)"),
+    (
+        "--normalisation",
+        str,
+        "median_ratio | cpm | none (default: median_ratio for counts, none for log)",
+    ),
     ("--pseudocount", float, "added before log2 for counts, > 0 (default 1)"),
     ("--max-missing-fraction", float, "drop genes missing in more than this share (0.25)"),
     (
@@ -39,6 +43,13 @@ _PREPARE_SETTINGS = (
         "expression floor: CPM for counts (default 1), input units for log data (default off)",
     ),
     ("--min-samples-expressed", int, "samples at or above the floor a gene needs (2; 0 = off)"),
+    (
+        "--gene-selection",
+        str,
+        "responsive (test for change over time, the default) | all (no test)",
+    ),
+    ("--fdr", float, "FDR level of the test for change over time (0.05)"),
+    ("--min-log2-range", float, "smallest log2 range of a responsive gene's profile (1)"),
     ("--min-sd", float, "drop genes whose profile SD (log scale, ddof=1) is below this (0)"),
     ("--top-variable", int, "keep only this many most variable genes (default: all)"),
     ("--replicate-summary", str, "mean | median (default mean)"),
@@ -219,12 +230,15 @@ def _add_cluster(subparsers: argparse._SubParsersAction) -> None:
     parser.add_argument(
         "--n-clusters",
         default="auto",
-        help="c to use: auto (from the validity indices) or a number",
+        help="c to use: auto (the largest c that passes every criterion) or a number",
     )
     parser.add_argument("--m", default="auto", help="fuzzifier: auto | randomised | number > 1")
     parser.add_argument("--n-starts", type=int, default=20, help="random starts per c (20)")
     parser.add_argument("--tol", type=float, default=1e-4, help="convergence tolerance (1e-4)")
     parser.add_argument("--max-iter", type=int, default=500, help="iteration cap (500)")
+    parser.add_argument(
+        "--n-resamples", type=int, default=20, help="resamples per c for robustness (20)"
+    )
     parser.add_argument("--seed", type=int, default=1, help="seed of every random choice (1)")
     parser.add_argument(
         "--thresholds", default="0.5,0.7", help="core membership thresholds, comma-separated"
@@ -294,6 +308,7 @@ def _check_cluster_run_options(args: argparse.Namespace) -> None:
         "1e-4",
     )
     _check_option("--max-iter", args.max_iter, args.max_iter >= 1, "at least 1", "500")
+    _check_option("--n-resamples", args.n_resamples, args.n_resamples >= 2, "at least 2", "20")
     _check_seed(args.seed, "1")
     _check_option(
         "--time-unit",
@@ -306,7 +321,7 @@ def _check_cluster_run_options(args: argparse.Namespace) -> None:
 
 def _run_cluster(args: argparse.Namespace) -> int:
     from gloam import stages
-    from gloam.prepare import read_prepared
+    from gloam.prepare import read_prepared, read_prepared_replicates
 
     # Every option is checked before anything is written, so a mistake leaves no files and
     # does not surface after minutes of work.
@@ -318,7 +333,8 @@ def _run_cluster(args: argparse.Namespace) -> int:
     m = _fuzzifier_setting(args.m)
     thresholds = _threshold_list(args.thresholds)
     _check_cluster_run_options(args)
-    zscores, _columns = read_prepared(args.prepared)
+    zscores, columns = read_prepared(args.prepared)
+    replicates, samples = read_prepared_replicates(args.prepared)
     n_genes = len(zscores)
     stages.check_genes_for_fuzzifier(n_genes)
     stages.check_clusters_fit_genes(max(numbers), n_genes)
@@ -327,26 +343,41 @@ def _run_cluster(args: argparse.Namespace) -> int:
     chosen_m = stages.write_fuzzifier_choice(
         zscores, fuzzifier, args.seed, out / "fuzzifier.json", out / "fuzzifier_curve.tsv"
     )
-    stages.write_scan_input(zscores, chosen_m, out / "scan_input.npz")
+    stages.write_scan_input(
+        zscores,
+        chosen_m,
+        out / "scan_input.npz",
+        columns=columns,
+        replicates=replicates,
+        samples=samples,
+    )
     scan_settings = {
         "n_starts": args.n_starts,
         "tol": args.tol,
         "max_iter": args.max_iter,
         "init": "kmeans++",
         "precision": "fast",
+        "n_resamples": args.n_resamples,
     }
     scans = [out / "scan" / f"c{c}.npz" for c in numbers]
-    for c, path in zip(numbers, scans, strict=True):
+    for index, (c, path) in enumerate(zip(numbers, scans, strict=True), start=1):
+        print(f"gloam: clustering c = {c} ({index} of {len(numbers)})", file=sys.stderr)
         stages.run_scan(out / "scan_input.npz", c, scan_settings, args.seed, path)
     stages.run_select(
-        args.prepared,
+        out / "scan_input.npz",
+        out / "fuzzifier.json",
         scans,
         {"n_clusters": fixed},
+        args.seed,
         out_validity=out / "validity.tsv",
         out_selection=out / "selection.json",
         out_consensus=out / "consensus.npz",
     )
     figures = out / "figures"
+
+    def figure(name: str) -> tuple[Path, Path, Path]:
+        return tuple(figures / f"{name}.{suffix}" for suffix in ("png", "pdf", "svg"))
+
     stages.export_results(
         args.prepared,
         out / "consensus.npz",
@@ -357,22 +388,20 @@ def _run_cluster(args: argparse.Namespace) -> int:
         {"seed": args.seed, "fuzzifier": {"m": m}, "scan": scan_settings},
         memberships=out / "memberships.tsv",
         centroids=out / "centroids.tsv",
+        clusters=out / "clusters.tsv",
+        robustness=out / "robustness.tsv",
         h5ad=out / "gloam.h5ad",
-        validity_figure=(figures / "validity.png", figures / "validity.pdf"),
-        fuzzifier_figure=(figures / "fuzzifier.png", figures / "fuzzifier.pdf"),
-        correlation_figure=(
-            figures / "centroid_correlation.png",
-            figures / "centroid_correlation.pdf",
-        ),
+        validity_figure=figure("validity"),
+        fuzzifier_figure=figure("fuzzifier"),
+        overview_figure=figure("overview"),
     )
     stages.export_core_genes(
         args.prepared,
-        out / "memberships.tsv",
-        out / "centroids.tsv",
+        out / "consensus.npz",
         thresholds,
         args.time_unit,
         genesets=out / "genesets",
-        profiles_figure=(figures / "profiles.png", figures / "profiles.pdf"),
+        profiles_figure=figure("profiles"),
     )
     print(f"gloam: clustered -> {out}")
     return 0

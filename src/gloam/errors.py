@@ -16,6 +16,9 @@ __all__ = [
     "GloamError",
     "GloamWarning",
     "ConvergenceWarning",
+    "QualityWarning",
+    "QUALITY_FLAGS",
+    "raise_flag",
     "exit_on_user_error",
     "report_and_exit",
     "show_warning",
@@ -38,6 +41,61 @@ class GloamWarning(UserWarning):
 
 class ConvergenceWarning(GloamWarning):
     """Fuzzy c-means stopped at ``max_iter`` before the membership change fell below ``tol``."""
+
+
+class QualityWarning(GloamWarning):
+    """A quality check failed: the result exists but needs care (see :data:`QUALITY_FLAGS`)."""
+
+
+#: Every quality flag a run can carry, with what it means for the user. A flag travels to
+#: ``selection.json``, ``summary.tsv`` (column ``flags``), the job's log and the report.
+QUALITY_FLAGS: dict[str, str] = {
+    "no_replicates": (
+        "no time point has replicates, so genes were selected by the variance rule, not by a "
+        "test against replicate noise"
+    ),
+    "fuzzifier_check_failed": (
+        "shuffled data still show cluster structure at the m used; consider a larger m "
+        "(fuzzifier.m: randomised)"
+    ),
+    "no_structure": (
+        "the selected genes show no more cluster structure than one Gaussian with the same "
+        "covariance; clusters would be arbitrary cuts of a continuum"
+    ),
+    "no_robust_c": (
+        "no scanned number of clusters gave clusters that are robust, sizeable, distinct and "
+        "coherent"
+    ),
+    "few_starts_at_optimum": (
+        "few random starts reached the best objective at the c used, even after adding starts"
+    ),
+    "unstable_clusters": (
+        "a cluster at the c used dissolves under resampling (mean Jaccard below the stable level)"
+    ),
+    "near_empty_clusters": "a cluster at the c used has fewer core genes than the minimum",
+    "similar_centroids": "two centroids at the c used are nearly the same response",
+    "incoherent_clusters": (
+        "a cluster at the c used gathers genes that barely agree (a centroid near the flat profile)"
+    ),
+    "c_at_scan_edge": (
+        "the recommended c is the largest scanned; scan larger c (scan.max_clusters) to see "
+        "whether more clusters pass"
+    ),
+    "mostly_noise": "more than half of the clustered genes fit no cluster (noise class largest)",
+}
+
+
+def raise_flag(name: str, detail: str) -> str:
+    """Warn about quality flag ``name`` in one line (with ``detail``) and return the name.
+
+    Raises
+    ------
+    KeyError
+        If ``name`` is not in :data:`QUALITY_FLAGS` (a programming error, not a user's).
+    """
+    meaning = QUALITY_FLAGS[name]
+    warnings.warn(f"quality flag {name}: {detail} ({meaning})", QualityWarning, stacklevel=2)
+    return name
 
 
 def report_and_exit(error: GloamError) -> NoReturn:

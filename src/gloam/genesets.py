@@ -154,8 +154,13 @@ def _ranked_order(genes: np.ndarray, values: np.ndarray) -> np.ndarray:
     return np.lexsort((genes, -values))
 
 
-def core_genes(memberships: pd.DataFrame, threshold: float) -> dict[str, list[str]]:
+def core_genes(
+    memberships: pd.DataFrame, threshold: float, noise: pd.Series | None = None
+) -> dict[str, list[str]]:
     """Core genes of every cluster: membership in the cluster >= ``threshold``.
+
+    A gene whose noise membership (``noise``) is larger than each of its cluster memberships
+    fits no response and is never a core gene (noise clustering, Davé 1991).
 
     Parameters
     ----------
@@ -164,6 +169,8 @@ def core_genes(memberships: pd.DataFrame, threshold: float) -> dict[str, list[st
     threshold : float
         In (0, 1]. Above 0.5 a gene is core in at most one cluster; at 0.5 or below it can be
         core in two or more.
+    noise : pandas.Series, optional
+        Noise membership per gene (index gene IDs, the same genes).
 
     Returns
     -------
@@ -180,10 +187,16 @@ def core_genes(memberships: pd.DataFrame, threshold: float) -> dict[str, list[st
     table = _check_memberships(memberships)
     genes = table.index.to_numpy(dtype=str)
     values = table.to_numpy()
+    eligible = np.ones(len(genes), dtype=bool)
+    if noise is not None:
+        noise_values = noise.reindex(table.index).to_numpy(dtype=np.float64)
+        if np.isnan(noise_values).any():
+            raise GloamError("noise memberships must be given for every gene of the memberships")
+        eligible = noise_values <= values.max(axis=1)
     sets = {}
     for k, cluster in enumerate(table.columns):
         order = _ranked_order(genes, values[:, k])
-        keep = order[values[order, k] >= threshold]
+        keep = order[(values[order, k] >= threshold) & eligible[order]]
         sets[cluster] = genes[keep].tolist()
     return sets
 
@@ -293,6 +306,8 @@ def write_gene_sets(
     out_dir: str | os.PathLike[str],
     background_genes: Sequence[str] | None = None,
     prefix: str = "gloam",
+    noise: pd.Series | None = None,
+    core_sets: bool = True,
 ) -> list[Path]:
     """Write core-gene lists, GMT files, ranked lists and the background.
 
@@ -313,6 +328,11 @@ def write_gene_sets(
         Defaults to the genes of ``memberships``.
     prefix : str, default "gloam"
         Start of every set and file name (letters, digits, ``_ . -``), e.g. the dataset name.
+    noise : pandas.Series, optional
+        Noise membership per gene; genes whose largest membership is noise are never core.
+    core_sets : bool, default True
+        False writes every core list and GMT file empty (used when no clusters are
+        recommended: a single group is not a cluster).
 
     Returns
     -------
@@ -333,7 +353,9 @@ def write_gene_sets(
     written = []
 
     for threshold in thresholds:
-        sets = core_genes(table, threshold)
+        sets = core_genes(table, threshold, noise)
+        if not core_sets:
+            sets = {cluster: [] for cluster in sets}
         for cluster in clusters:
             path = next(paths)
             write_lines(sets[cluster], path)

@@ -77,9 +77,13 @@ def atomic_output(path: str | os.PathLike[str]) -> Iterator[Path]:
 
 
 def write_table(table: pd.DataFrame, path: str | os.PathLike[str], *, index: bool = False) -> None:
-    """Write ``table`` as tab-separated text (gzipped when ``path`` ends in ``.gz``)."""
+    """Write ``table`` as tab-separated text (gzipped when ``path`` ends in ``.gz``).
+
+    Floats are written in their shortest round-trip form (Python's ``repr``), so a value read
+    back is exactly the value written: a membership of 0.6999996 never becomes 0.7.
+    """
     with atomic_output(path) as temporary:
-        table.to_csv(temporary, sep="\t", index=index, float_format="%.6g")
+        table.to_csv(temporary, sep="\t", index=index)
 
 
 def write_lines(lines: Iterable[str], path: str | os.PathLike[str]) -> None:

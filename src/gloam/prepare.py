@@ -15,9 +15,13 @@ Steps, in order (each recorded per gene in the report):
 4. Expression filter: at least ``min_samples_expressed`` samples at or above
    ``min_expression`` (CPM for counts; the input's own units for log data).
 5. Replicate summary (mean or median) per condition and time point.
-6. Genes whose profile is flat are dropped; variability filter on the standard deviation of
-   the profile (``min_sd``, then the ``top_variable`` most variable genes).
-7. z-score of each gene across its profile (``ddof=1``, see :data:`ZSCORE_DDOF`).
+6. Genes whose profile is flat are dropped.
+7. Time-responsive genes (``gene_selection="responsive"``, the default): a moderated F-test
+   of change over time within each condition against the replicate noise, FDR and a minimum
+   log2 range (:mod:`gloam.responsive`); without replicates a documented variance rule.
+8. Optional variability filters on the standard deviation of the profile (``min_sd``, then
+   the ``top_variable`` most variable genes).
+9. z-score of each gene across its profile (``ddof=1``, see :data:`ZSCORE_DDOF`).
 
 Counts must not contain missing values: RNA-seq quantifiers write 0 for an unobserved gene,
 so an empty cell in a counts table means a damaged file, and it is reported as an error.
@@ -51,6 +55,7 @@ __all__ = [
     "prepare_expression",
     "write_prepared",
     "read_prepared",
+    "read_prepared_replicates",
     "counts_per_million",
     "median_of_ratios_size_factors",
     "log_transform",
@@ -69,6 +74,9 @@ DROP_REASONS = (
     "missing_in_whole_condition",
     "low_expression",
     "flat",
+    "not_significant",
+    "small_change",
+    "low_variance_for_level",
     "low_variability",
     "not_in_top_variable",
 )
@@ -81,6 +89,7 @@ DEFAULT_CONDITION = "all"
 UNS_KEY = "prepare"
 VAR_PREFIX = "prepare_"
 RAW_VARM_KEY = "prepare_raw"
+REPLICATES_VARM_KEY = "prepare_replicates"
 LOG_MEAN_LAYER = "log_mean"
 
 # A profile whose SD is below this share of its magnitude is constant up to rounding.
@@ -91,6 +100,7 @@ _INTEGER_TOLERANCE = 1e-6
 _CHOICES = {
     "value_type": ("counts", "log"),
     "normalisation": ("cpm", "median_ratio", "none"),
+    "gene_selection": ("responsive", "all"),
     "replicate_summary": ("mean", "median"),
     "conditions": ("concatenate", "separate"),
 }
@@ -107,7 +117,8 @@ class PrepareSettings:
         already on a log scale (microarray, proteomics, pre-normalised data); may hold
         missing values.
     normalisation : {"cpm", "median_ratio", "none"} or None
-        Library-size normalisation of counts.  None (default) means ``cpm`` for counts and
+        Library-size normalisation of counts.  None (default) means ``median_ratio`` for
+        counts (Anders & Huber 2010: robust to a few genes that dominate a library) and
         ``none`` for log data; log data accept only ``none``.
     pseudocount : float
         Added before ``log2`` for counts, > 0 (default 1).
@@ -120,6 +131,15 @@ class PrepareSettings:
     min_samples_expressed : int
         A gene is kept when at least this many samples are at or above ``min_expression``,
         >= 0 (default 2; 0 switches the filter off).
+    gene_selection : {"responsive", "all"}
+        ``responsive`` (default): keep genes that change over time (:mod:`gloam.responsive`:
+        moderated F-test at ``fdr`` and a log2 range of at least ``min_log2_range``; without
+        replicates a variance rule).  ``all``: no such test.
+    fdr : float
+        Benjamini–Hochberg level of the test for change over time, in (0, 1) (default 0.05).
+    min_log2_range : float
+        Smallest range (max - min, log2 units) of the mean profile a responsive gene needs in
+        at least one condition, >= 0 (default 1: two-fold, common practice).
     min_sd : float
         Genes whose profile SD (log scale, ddof=1) is below this are dropped, >= 0
         (default 0: off).
@@ -147,6 +167,9 @@ class PrepareSettings:
     max_missing_fraction: float = 0.25
     min_expression: float | None = None
     min_samples_expressed: int = 2
+    gene_selection: str = "responsive"
+    fdr: float = 0.05
+    min_log2_range: float = 1.0
     min_sd: float = 0.0
     top_variable: int | None = None
     replicate_summary: str = "mean"
@@ -215,7 +238,9 @@ def _validate_settings(settings: PrepareSettings) -> None:
             raise _setting_error(name, value, "one of " + ", ".join(repr(c) for c in choices))
     if settings.normalisation is None:
         object.__setattr__(
-            settings, "normalisation", "cpm" if settings.value_type == "counts" else "none"
+            settings,
+            "normalisation",
+            "median_ratio" if settings.value_type == "counts" else "none",
         )
     if settings.value_type == "log" and settings.normalisation != "none":
         raise _setting_error(
@@ -235,8 +260,10 @@ def _validate_settings(settings: PrepareSettings) -> None:
         _check_number("min_expression", settings.min_expression, low=-np.inf, allow_none=True)
     _check_number("min_samples_expressed", settings.min_samples_expressed, low=0, integer=True)
     _check_number("min_sd", settings.min_sd, low=0.0)
+    _check_number("fdr", settings.fdr, low=0.0, low_open=True, high=1.0, high_open=True)
+    _check_number("min_log2_range", settings.min_log2_range, low=0.0)
     _check_number("top_variable", settings.top_variable, low=1, integer=True, allow_none=True)
-    for name in ("pseudocount", "max_missing_fraction", "min_sd"):
+    for name in ("pseudocount", "max_missing_fraction", "min_sd", "fdr", "min_log2_range"):
         object.__setattr__(settings, name, float(getattr(settings, name)))
     if settings.min_expression is not None:
         object.__setattr__(settings, "min_expression", float(settings.min_expression))
@@ -305,14 +332,26 @@ class PreparedData:
     raw : DataFrame of shape (n_input_genes, n_used_samples)
         Input values as read, for the samples used (all samples of the selected
         condition(s), in sample-sheet order).
-    gene_report : DataFrame of shape (n_input_genes, 7)
+    gene_report : DataFrame of shape (n_input_genes, 11)
         One row per input gene, in input order; columns ``gene``, ``status`` (``kept`` or
         one of :data:`DROP_REASONS`), ``n_missing``, ``n_filled``, ``n_samples_expressed``
         (NA when the expression filter is off), ``mean_log`` (mean log value over the used
-        samples after filling), ``sd`` (profile SD, ddof=1; NA when dropped earlier).
+        samples after filling), ``sd`` (profile SD, ddof=1; NA when dropped earlier),
+        ``log2_range`` (largest range of the mean log2 profile within a condition),
+        ``response_statistic``, ``response_p_value``, ``response_fdr`` (moderated F-test of
+        change over time; NA without replicates, with ``gene_selection="all"`` or when the
+        gene was dropped before the test).
     summary : DataFrame of shape (len(DROP_REASONS) + 1, 2)
         Columns ``reason`` and ``n_genes``: every drop reason in step order, then ``kept``;
         ``n_genes`` sums to the number of input genes.
+    replicates : DataFrame of shape (n_kept_genes, n_used_samples)
+        Per-sample log values of the kept genes after filling (what the replicate summary
+        averaged); with ``samples["column"]`` it lets robustness checks resample replicates.
+    selection_method : str
+        How genes were tested for change over time: ``moderated_f``, ``no_replicates``
+        (variance rule) or ``none`` (``gene_selection="all"``).
+    selection_notes : list of str
+        Plain-language notes of the gene selection, for the log.
     samples : DataFrame of shape (n_used_samples, k)
         The samples used: ``sample``, ``time``, ``condition``, ``replicate`` (when given),
         ``column`` (the prepared column fed), and ``library_size`` / ``size_factor`` for
@@ -329,6 +368,9 @@ class PreparedData:
     summary: pd.DataFrame
     samples: pd.DataFrame
     settings: PrepareSettings
+    replicates: pd.DataFrame | None = None
+    selection_method: str = "none"
+    selection_notes: tuple[str, ...] = ()
 
 
 # --------------------------------------------------------------------------------------
@@ -728,13 +770,15 @@ def _no_gene_left_error(summary: pd.DataFrame) -> GloamError:
     n_genes = dict(zip(summary["reason"], summary["n_genes"], strict=True))
     counts = ", ".join(f"{reason}: {n}" for reason, n in n_genes.items() if n)
     relax_filters = (
-        "relax the filters (min_expression, min_samples_expressed, min_sd, max_missing_fraction)"
+        "relax the filters (min_expression, min_samples_expressed, fdr, min_log2_range, "
+        "min_sd, max_missing_fraction; gene_selection: all switches the test for change "
+        "over time off)"
     )
     check_flat_data = (
         "check that the matrix holds the intended values and that the sample sheet's time "
         "column assigns the samples to different times"
     )
-    flat_steps_after = ("low_variability", "not_in_top_variable")
+    flat_steps_after = DROP_REASONS[DROP_REASONS.index("flat") + 1 :]
     if n_genes["flat"] == 0 or any(n_genes[reason] for reason in flat_steps_after):
         return GloamError(f"no gene is left after preparation ({counts}); {relax_filters}")
     if n_genes["flat"] == sum(n_genes.values()):
@@ -879,6 +923,26 @@ def prepare_expression(
     profile_mean = profiles.mean(axis=1)
     profile_sd = profiles.std(axis=1, ddof=ZSCORE_DDOF)
     drop(_is_flat(profile_mean, profile_sd), "flat")
+    log2_range = _largest_condition_range(profiles, columns["condition"].to_numpy(dtype=object))
+    response_columns = {
+        name: np.full(n_genes, np.nan)
+        for name in ("response_statistic", "response_p_value", "response_fdr")
+    }
+    selection_method, selection_notes = "none", ()
+    if settings.gene_selection == "responsive":
+        tested = np.flatnonzero(status == KEPT)
+        if tested.size:
+            selection_method, selection_notes = _select_responsive(
+                log_values[tested],
+                group_of_sample,
+                columns,
+                genes[tested],
+                mean_log[tested],
+                settings,
+                status_of_tested=status,
+                tested=tested,
+                response_columns=response_columns,
+            )
     if settings.min_sd > 0:
         drop(profile_sd < settings.min_sd, "low_variability")
     if settings.top_variable is not None:
@@ -903,7 +967,7 @@ def prepare_expression(
 
     zscores, _, _ = zscore_rows(profiles[kept])
     kept_genes = pd.Index(genes[kept], name="gene")
-    reached_summary = np.isin(status, [KEPT, "flat", "low_variability", "not_in_top_variable"])
+    reached_summary = np.isin(status, [KEPT, *DROP_REASONS[DROP_REASONS.index("flat") :]])
     gene_report = pd.DataFrame(
         {
             "gene": genes,
@@ -915,6 +979,8 @@ def prepare_expression(
             ),
             "mean_log": mean_log,
             "sd": np.where(reached_summary, profile_sd, np.nan),
+            "log2_range": np.where(reached_summary, log2_range, np.nan),
+            **response_columns,
         }
     )
     return PreparedData(
@@ -926,7 +992,61 @@ def prepare_expression(
         summary=summary,
         samples=used,
         settings=settings,
+        replicates=pd.DataFrame(
+            log_values[kept], index=kept_genes, columns=used["sample"].astype(str).to_numpy()
+        ),
+        selection_method=selection_method,
+        selection_notes=tuple(selection_notes),
     )
+
+
+def _largest_condition_range(profiles: np.ndarray, condition_of_column: np.ndarray) -> np.ndarray:
+    """Per gene, the largest range (max - min) of the profile within one condition (log2)."""
+    largest = np.zeros(profiles.shape[0])
+    for condition in dict.fromkeys(condition_of_column.tolist()):
+        block = profiles[:, condition_of_column == condition]
+        largest = np.maximum(largest, block.max(axis=1) - block.min(axis=1))
+    return largest
+
+
+def _select_responsive(
+    log_values: np.ndarray,
+    group_of_sample: np.ndarray,
+    columns: pd.DataFrame,
+    genes: np.ndarray,
+    mean_log: np.ndarray,
+    settings: PrepareSettings,
+    *,
+    status_of_tested: np.ndarray,
+    tested: np.ndarray,
+    response_columns: dict[str, np.ndarray],
+) -> tuple[str, tuple[str, ...]]:
+    """Test the genes still kept for change over time; mark the others with their reason.
+
+    Writes the drop reason into ``status_of_tested[tested]`` and the test's statistic, p-value
+    and FDR into ``response_columns`` (arrays over every input gene).
+    """
+    from gloam.responsive import select_responsive
+
+    selection = select_responsive(
+        log_values,
+        group_of_sample,
+        columns["condition"].to_numpy(dtype=object),
+        columns["time"].to_numpy(dtype=np.float64),
+        genes=genes,
+        fdr=settings.fdr,
+        min_log2_range=settings.min_log2_range,
+        trend=settings.value_type == "counts",
+        mean_expression=mean_log,
+    )
+    table = selection.table
+    reasons = table["reason"].to_numpy(dtype=object)
+    dropped = reasons != "responsive"
+    status_of_tested[tested[dropped]] = reasons[dropped]
+    response_columns["response_statistic"][tested] = table["statistic"].to_numpy(dtype=float)
+    response_columns["response_p_value"][tested] = table["p_value"].to_numpy(dtype=float)
+    response_columns["response_fdr"][tested] = table["fdr"].to_numpy(dtype=float)
+    return selection.method, tuple(selection.notes)
 
 
 def _uns_safe(settings: PrepareSettings) -> dict[str, object]:
@@ -939,7 +1059,7 @@ def _to_anndata(prepared: PreparedData):  # -> anndata.AnnData (imported lazily)
 
     report = prepared.gene_report.set_index("gene").loc[prepared.zscores.index]
     var = pd.DataFrame(index=prepared.zscores.index.astype(str))
-    for column in ("n_missing", "n_filled", "mean_log", "sd"):
+    for column in ("n_missing", "n_filled", "mean_log", "sd", "log2_range", "response_fdr"):
         var[f"{VAR_PREFIX}{column}"] = report[column].to_numpy()
     var[f"{VAR_PREFIX}n_samples_expressed"] = (
         report["n_samples_expressed"].astype("float64").to_numpy()
@@ -957,11 +1077,19 @@ def _to_anndata(prepared: PreparedData):  # -> anndata.AnnData (imported lazily)
         obs=obs,
         var=var,
         layers={LOG_MEAN_LAYER: prepared.log_means.to_numpy(dtype=np.float64).T},
-        varm={RAW_VARM_KEY: raw.to_numpy(dtype=np.float64)},
+        varm={
+            RAW_VARM_KEY: raw.to_numpy(dtype=np.float64),
+            **(
+                {}
+                if prepared.replicates is None
+                else {REPLICATES_VARM_KEY: prepared.replicates.to_numpy(dtype=np.float64)}
+            ),
+        },
         uns={
             UNS_KEY: {
                 "settings": _uns_safe(prepared.settings),
                 "zscore_ddof": ZSCORE_DDOF,
+                "selection_method": prepared.selection_method,
                 "raw_samples": np.asarray(raw.columns.astype(str), dtype=object),
                 "samples": samples.reset_index(drop=True),
                 "summary": prepared.summary,
@@ -1064,3 +1192,30 @@ def read_prepared(h5ad_path: str | os.PathLike[str]) -> tuple[pd.DataFrame, pd.D
     columns["time"] = columns["time"].astype(np.float64)
     columns["condition"] = columns["condition"].astype(str)
     return zscores, columns
+
+
+def read_prepared_replicates(
+    h5ad_path: str | os.PathLike[str],
+) -> tuple[pd.DataFrame | None, pd.DataFrame | None]:
+    """Per-sample log values of the kept genes and the sample table, from ``prepared.h5ad``.
+
+    Returns
+    -------
+    replicates : DataFrame of shape (n_genes, n_samples) or None
+        ``varm["prepare_replicates"]`` with sample names as columns (None for files written
+        before it existed).
+    samples : DataFrame or None
+        ``uns["prepare"]["samples"]`` (``sample``, ``time``, ``condition``, ``column``, ...).
+    """
+    import anndata
+
+    data = anndata.read_h5ad(h5ad_path)
+    if REPLICATES_VARM_KEY not in data.varm or UNS_KEY not in data.uns:
+        return None, None
+    samples = pd.DataFrame(data.uns[UNS_KEY]["samples"])
+    replicates = pd.DataFrame(
+        np.asarray(data.varm[REPLICATES_VARM_KEY], dtype=np.float64),
+        index=pd.Index(data.var_names.astype(str), name="gene"),
+        columns=samples["sample"].astype(str).to_numpy(),
+    )
+    return replicates, samples

@@ -7,27 +7,20 @@ finished.
 
 Files between stages
 --------------------
-``scan/c<c>.npz`` (:func:`run_scan`)
-    Every random start for one c: ``memberships`` (n_starts, n_genes, c), ``centroids``
-    (n_starts, c, n_columns), ``objectives``, ``n_iter``, ``converged`` (n_starts,),
-    ``m``, ``best_index``, ``seed``, ``genes`` and ``columns`` (the prepared matrix's labels).
+``prepared/scan_input.npz`` (:func:`write_scan_input`, read by :func:`read_scan_input`)
+    What every scan job and the selection read, in one file (one input per scan job keeps the
+    plan of a large grid small): ``zscores`` (n_genes, n_columns), ``genes``, ``columns``,
+    ``times``, ``conditions``, ``m``, ``selection_method`` and, with replicates,
+    ``replicates`` (n_genes, n_samples; per-sample log values) and ``sample_column``.
 ``fuzzifier.json`` (:func:`write_fuzzifier_choice`)
     ``m``, ``method``, ``formula_m``, ``setting``, ``n_clusters_check``, ``n_genes``,
-    ``n_columns``; the randomised-data curve goes to its own TSV.
-``prepared/scan_input.npz`` (:func:`write_scan_input`)
-    What every scan job reads, in one file: ``zscores`` (n_genes, n_columns, float64, the
-    prepared matrix's values), ``genes``, ``columns`` and ``m`` (the fuzzifier chosen for
-    them). One input per scan job instead of two keeps the plan of a large grid small, and
-    reading it needs NumPy only.
-``selection.json`` (:func:`run_select`)
-    ``n_clusters`` (used), ``method`` (``auto`` or ``fixed``), ``recommended``, ``reason``,
-    ``scanned``.
-``consensus.npz`` (:func:`run_select`)
-    For the chosen c, clusters in peak-time order: ``memberships``, ``membership_sd``
-    (n_genes, c), ``top_cluster`` (0-based), ``top_membership``, ``stability`` (n_genes,),
-    ``centroids`` (c, n_columns), ``order`` (best start's label of each column),
-    ``start_top_cluster`` (n_starts, n_genes: each aligned start's top cluster),
-    ``cluster_names``, ``genes``, ``columns``, ``m``, ``n_starts``.
+    ``n_columns``, ``check_structure_index``, ``check_passed``; the randomised-data curve goes
+    to its own TSV.
+``scan/c<c>.npz`` (:func:`run_scan`, read by :func:`read_scan`)
+    The partition for one c with its evidence (see :func:`run_scan`).
+``selection.json``, ``validity.tsv``, ``consensus.npz`` (:func:`run_select`)
+    The decision on c, the per-c table behind it and the chosen partition in peak-time order
+    (:func:`consensus_arrays`).
 
 Seeds: the scan for c draws from ``numpy.random.default_rng([seed, c])`` and the fuzzifier
 check from ``default_rng([seed, 0])``, so each job is reproducible on its own, whatever
@@ -65,12 +58,18 @@ __all__ = [
     "check_clusters_fit_genes",
     "clusters_for_fuzzifier_check",
     "write_fuzzifier_choice",
+    "ScanInput",
     "write_scan_input",
     "read_scan_input",
     "run_scan",
     "read_scan",
     "run_select",
+    "consensus_arrays",
+    "single_group_arrays",
     "read_consensus",
+    "membership_frame",
+    "cluster_frame",
+    "robustness_frame",
     "export_tables",
     "export_gene_sets",
     "export_h5ad",
@@ -79,7 +78,7 @@ __all__ = [
     "figure_profiles",
     "figure_validity",
     "figure_fuzzifier",
-    "figure_centroid_correlation",
+    "figure_overview",
     "summarise_runs",
     "RESULT_KEY",
     "VAR_PREFIX",
@@ -211,12 +210,13 @@ def run_prepare(
     zscores: PathLike,
     gene_report: PathLike,
     summary: PathLike,
-) -> pd.DataFrame:
+) -> Any:
     """Read a matrix and its sample sheet, prepare them and write the four prepared files.
 
     ``settings`` holds the preparation settings (see :class:`gloam.prepare.PrepareSettings`)
-    plus ``layer`` (the ``.h5ad`` layer to read, or None). Returns the z-scores written
-    (genes x prepared columns), so a caller can go on without reading them back.
+    plus ``layer`` (the ``.h5ad`` layer to read, or None). Returns the
+    :class:`gloam.prepare.PreparedData` written, so a caller can go on without reading it
+    back. What was kept and how genes were selected goes to stderr (the job's log).
     """
     from gloam.io import read_matrix, read_sample_sheet
     from gloam.prepare import prepare_expression, settings_from_mapping, write_prepared
@@ -231,7 +231,27 @@ def run_prepare(
     write_prepared(
         prepared, h5ad_path=h5ad, tsv_path=zscores, report_path=gene_report, summary_path=summary
     )
-    return prepared.zscores
+    _log_preparation(prepared)
+    return prepared
+
+
+def _log_preparation(prepared: Any) -> None:
+    """What the preparation kept and how genes were selected, for the job's log."""
+    from gloam.errors import raise_flag
+
+    counts = dict(zip(prepared.summary["reason"], prepared.summary["n_genes"], strict=True))
+    dropped = ", ".join(f"{reason} {n}" for reason, n in counts.items() if n and reason != "kept")
+    total = sum(counts.values())
+    print(
+        f"gloam: read {total} genes x {len(prepared.samples)} samples; kept {counts['kept']} "
+        f"(dropped: {dropped or 'none'}); {prepared.zscores.shape[1]} time-point columns; "
+        f"gene selection: {prepared.selection_method}",
+        file=sys.stderr,
+    )
+    for note in prepared.selection_notes:
+        print(f"gloam: {note}", file=sys.stderr)
+    if prepared.selection_method == "no_replicates":
+        raise_flag("no_replicates", "genes were selected by the variance rule")
 
 
 # ------------------------------------------------------------------ checks against the data size
@@ -284,6 +304,12 @@ def clusters_for_fuzzifier_check(requested: int, n_genes: int) -> int:
 # ------------------------------------------------------------------ fuzzifier and scan
 
 
+def _structure_index_at(curve: pd.DataFrame, m: float) -> float:
+    """The shuffled-data structure index at ``m``, interpolated on the curve's grid."""
+    ordered = curve.sort_values("m")
+    return float(np.interp(m, ordered["m"].to_numpy(), ordered["structure_index"].to_numpy()))
+
+
 def write_fuzzifier_choice(
     zscores: pd.DataFrame,
     settings: Mapping[str, Any],
@@ -296,13 +322,17 @@ def write_fuzzifier_choice(
 
     ``settings``: ``m`` (``"auto"``, ``"randomised"`` or a number > 1) and
     ``n_clusters_check``. The curve TSV has the columns of
-    :data:`gloam.fuzzifier.CURVE_COLUMNS`.
+    :data:`gloam.fuzzifier.CURVE_COLUMNS`. The JSON also records ``check_structure_index``
+    (the shuffled-data structure index at the m used) and ``check_passed`` (below
+    :data:`gloam.fuzzifier.STRUCTURELESS_INDEX`); a failed check raises the quality flag
+    ``fuzzifier_check_failed``.
 
     Fewer than 3 genes are refused before anything is written
     (:func:`check_genes_for_fuzzifier`); ``n_clusters_check`` is lowered below the number
     of genes with a warning (:func:`clusters_for_fuzzifier_check`).
     """
-    from gloam.fuzzifier import choose_fuzzifier
+    from gloam.errors import raise_flag
+    from gloam.fuzzifier import STRUCTURELESS_INDEX, choose_fuzzifier
 
     n_genes = int(zscores.shape[0])
     check_genes_for_fuzzifier(n_genes)
@@ -312,6 +342,14 @@ def write_fuzzifier_choice(
         n_clusters_check=clusters_for_fuzzifier_check(int(settings["n_clusters_check"]), n_genes),
         rng=np.random.default_rng([int(seed), 0]),
     )
+    index = _structure_index_at(choice.curve, choice.m)
+    passed = bool(index < STRUCTURELESS_INDEX)
+    if not passed:
+        raise_flag(
+            "fuzzifier_check_failed",
+            f"structure index {index:.3f} of shuffled data at m = {choice.m:.3f} (structureless "
+            f"below {STRUCTURELESS_INDEX})",
+        )
     write_table(choice.curve, out_curve)
     _write_json(
         {
@@ -322,26 +360,95 @@ def write_fuzzifier_choice(
             "n_clusters_check": int(choice.n_clusters_check),
             "n_genes": int(zscores.shape[0]),
             "n_columns": int(zscores.shape[1]),
+            "check_structure_index": index,
+            "check_passed": passed,
         },
         out_json,
+    )
+    print(
+        f"gloam: fuzzifier m = {choice.m:.3f} ({choice.method}; formula {choice.formula_m:.3f}); "
+        f"shuffled-data check {'passed' if passed else 'FAILED'}",
+        file=sys.stderr,
     )
     return float(choice.m)
 
 
-def write_scan_input(zscores: pd.DataFrame, m: float, out_npz: PathLike) -> None:
-    """Write what a scan job reads: the z-scores (genes x prepared columns) and the m chosen
-    for them (layout in the module notes)."""
-    _write_npz(
-        out_npz,
-        zscores=zscores.to_numpy(dtype=np.float64),
-        genes=zscores.index.to_numpy(dtype=str),
-        columns=zscores.columns.to_numpy(dtype=str),
-        m=np.float64(m),
-    )
+@dataclasses.dataclass(frozen=True)
+class ScanInput:
+    """What every scan job and the selection read (``prepared/scan_input.npz``).
+
+    Attributes
+    ----------
+    zscores : DataFrame of shape (n_genes, n_columns)
+        Index ``gene``, one column per prepared column.
+    m : float
+        Fuzzifier chosen for these data.
+    times : ndarray of shape (n_columns,)
+        Time of each column (the sample sheet's unit).
+    conditions : ndarray of shape (n_columns,), str
+        Condition of each column.
+    replicates : ndarray of shape (n_genes, n_samples) or None
+        Per-sample log values (for resampling replicates).
+    sample_column : ndarray of shape (n_samples,), int, or None
+        Column each sample belongs to.
+    selection_method : str
+        How genes were selected (``moderated_f``, ``no_replicates`` or ``none``).
+    """
+
+    zscores: pd.DataFrame
+    m: float
+    times: np.ndarray
+    conditions: np.ndarray
+    replicates: np.ndarray | None
+    sample_column: np.ndarray | None
+    selection_method: str
 
 
-def read_scan_input(path: PathLike) -> tuple[pd.DataFrame, float]:
-    """The z-scores (index ``gene``, one column per prepared column) and m of a scan input."""
+def write_scan_input(
+    zscores: pd.DataFrame,
+    m: float,
+    out_npz: PathLike,
+    *,
+    columns: pd.DataFrame | None = None,
+    replicates: pd.DataFrame | None = None,
+    samples: pd.DataFrame | None = None,
+    selection_method: str = "none",
+) -> None:
+    """Write what a scan job reads (see :class:`ScanInput`).
+
+    ``columns`` is the prepared column table (``time``, ``condition``; without it the
+    columns are taken as times 0, 1, ... of one condition). ``replicates`` (genes x samples)
+    with ``samples`` (a ``sample`` and a ``column`` per sample, as in
+    :attr:`gloam.prepare.PreparedData.samples`) enables resampling of replicates.
+    """
+    names = zscores.columns.astype(str)
+    if columns is None:
+        times = np.arange(len(names), dtype=np.float64)
+        conditions = np.full(len(names), "all")
+    else:
+        times = columns.loc[names, "time"].to_numpy(dtype=np.float64)
+        conditions = columns.loc[names, "condition"].to_numpy(dtype=str)
+    arrays: dict[str, Any] = {
+        "zscores": zscores.to_numpy(dtype=np.float64),
+        "genes": zscores.index.to_numpy(dtype=str),
+        "columns": names.to_numpy(dtype=str),
+        "m": np.float64(m),
+        "times": times,
+        "conditions": conditions,
+        "selection_method": np.str_(selection_method),
+    }
+    if replicates is not None and samples is not None:
+        position = {name: i for i, name in enumerate(names)}
+        order = samples.set_index(samples["sample"].astype(str))["column"].astype(str)
+        arrays["replicates"] = replicates.loc[zscores.index].to_numpy(dtype=np.float64)
+        arrays["sample_column"] = np.array(
+            [position[order[str(sample)]] for sample in replicates.columns], dtype=np.int64
+        )
+    _write_npz(out_npz, **arrays)
+
+
+def read_scan_input(path: PathLike) -> ScanInput:
+    """Read a scan input written by :func:`write_scan_input`."""
     data = _load_npz(path, "scan input")
     missing = {"zscores", "genes", "columns", "m"} - set(data)
     if missing:
@@ -354,7 +461,36 @@ def read_scan_input(path: PathLike) -> tuple[pd.DataFrame, float]:
         index=pd.Index(data["genes"], name="gene"),
         columns=pd.Index(data["columns"], name="column"),
     )
-    return zscores, float(data["m"])
+    n_columns = zscores.shape[1]
+    return ScanInput(
+        zscores=zscores,
+        m=float(data["m"]),
+        times=data.get("times", np.arange(n_columns, dtype=np.float64)),
+        conditions=data.get("conditions", np.full(n_columns, "all")),
+        replicates=data.get("replicates"),
+        sample_column=data.get("sample_column"),
+        selection_method=str(data.get("selection_method", "none")),
+    )
+
+
+#: Scan settings passed on to :func:`gloam.partition.solve_partition`.
+SCAN_SETTINGS = (
+    "n_starts",
+    "tol",
+    "max_iter",
+    "init",
+    "precision",
+    "min_starts_at_optimum",
+    "max_starts",
+    "noise_class",
+    "n_resamples",
+)
+_SCAN_DEFAULTS = {
+    "min_starts_at_optimum": 3,
+    "max_starts": 100,
+    "noise_class": True,
+    "n_resamples": 20,
+}
 
 
 def run_scan(
@@ -364,131 +500,248 @@ def run_scan(
     seed: int,
     out_npz: PathLike,
 ) -> None:
-    """Run every random start of fuzzy c-means for one c; keep all starts in ``out_npz``.
+    """Cluster the scan input into ``n_clusters`` and write the partition with its evidence.
 
-    ``scan_input`` is the file of :func:`write_scan_input` (z-scores and m). ``settings``:
-    ``n_starts``, ``tol``, ``max_iter``, ``init``, ``precision`` (the scan section of the
-    config; other keys are ignored). A c not below the number of genes is refused with a
-    message saying how to fix it (:func:`check_clusters_fit_genes`).
+    ``settings`` is the scan section of the config (keys :data:`SCAN_SETTINGS`; the last four
+    default to 3, 100, True and 20). The work is :func:`gloam.partition.solve_partition`;
+    the file holds ``centroids`` (c, n_columns), ``memberships`` (n_genes, c), ``noise``,
+    ``start_agreement``, ``top_agreement`` (n_genes,), ``membership_low``,
+    ``membership_high``, ``core_frequency`` (n_genes, c), ``jaccard`` (n_resamples, c),
+    ``noise_distance``, ``m``, ``seed``, ``genes``, ``columns`` and ``metrics`` (a JSON
+    string: one row of the validity table). A c not below the number of genes is refused with
+    a message saying how to fix it (:func:`check_clusters_fit_genes`).
     """
-    from gloam.fcm import fuzzy_cmeans
+    from gloam.partition import solve_partition
 
-    zscores, m = read_scan_input(scan_input)
-    check_clusters_fit_genes(int(n_clusters), len(zscores))
-    result = fuzzy_cmeans(
-        zscores.to_numpy(),
-        int(n_clusters),
-        m,
-        n_starts=int(settings["n_starts"]),
-        tol=float(settings["tol"]),
-        max_iter=int(settings["max_iter"]),
-        init=settings["init"],
-        precision=settings["precision"],
-        rng=np.random.default_rng([int(seed), int(n_clusters)]),
+    data = read_scan_input(scan_input)
+    c = int(n_clusters)
+    n_genes = len(data.zscores)
+    check_clusters_fit_genes(c, n_genes)
+    options = {**_SCAN_DEFAULTS, **{k: settings[k] for k in SCAN_SETTINGS if k in settings}}
+    partition = solve_partition(
+        data.zscores.to_numpy(),
+        c,
+        data.m,
+        rng=np.random.default_rng([int(seed), c]),
+        n_starts=int(options["n_starts"]),
+        tol=float(options["tol"]),
+        max_iter=int(options["max_iter"]),
+        init=options["init"],
+        precision=options["precision"],
         n_threads=int(os.environ.get("GLOAM_NUM_THREADS", "0")) or None,
+        min_starts_at_optimum=int(options["min_starts_at_optimum"]),
+        max_starts=int(options["max_starts"]),
+        noise_class=bool(options["noise_class"]),
+        n_resamples=int(options["n_resamples"]),
+        replicates=data.replicates,
+        sample_column=data.sample_column,
     )
+    metrics = dict(partition.metrics)
+    metrics["few_starts_at_optimum"] = metrics["n_at_optimum"] < int(
+        options["min_starts_at_optimum"]
+    )
+    if metrics["few_starts_at_optimum"]:
+        warnings.warn(
+            f"c = {c}: only {metrics['n_at_optimum']} of {metrics['n_starts']} starts reached "
+            "the best objective; the consensus rests on them (raise scan.max_starts)",
+            GloamWarning,
+            stacklevel=2,
+        )
+    empty = np.full_like(partition.memberships, np.nan)
     _write_npz(
         out_npz,
-        memberships=result.memberships,
-        centroids=result.centroids,
-        objectives=result.objectives,
-        n_iter=result.n_iter,
-        converged=result.converged,
-        m=np.float64(result.m),
-        best_index=np.int64(result.best_index),
+        centroids=partition.centroids,
+        memberships=partition.memberships,
+        noise=partition.noise,
+        noise_distance=np.float64(partition.noise_distance),
+        start_agreement=partition.start_agreement,
+        membership_low=_or(partition.membership_low, empty),
+        membership_high=_or(partition.membership_high, empty),
+        core_frequency=_or(partition.core_frequency, empty),
+        top_agreement=_or(partition.top_agreement, np.full(n_genes, np.nan)),
+        jaccard=_or(partition.jaccard, np.full((0, c), np.nan)),
+        m=np.float64(data.m),
         seed=np.int64(seed),
-        genes=zscores.index.to_numpy(dtype=str),
-        columns=zscores.columns.to_numpy(dtype=str),
+        genes=data.zscores.index.to_numpy(dtype=str),
+        columns=data.zscores.columns.to_numpy(dtype=str),
+        metrics=np.str_(json.dumps(metrics)),
+    )
+    print(
+        f"gloam: c = {c}: {metrics['n_at_optimum']} of {metrics['n_starts']} starts at the "
+        f"optimum; smallest cluster {metrics['min_core_genes']} core genes; smallest mean "
+        f"Jaccard {metrics['min_jaccard']:.2f} ({metrics['resampling']} resampled); "
+        f"{metrics['n_noise']} noise genes",
+        file=sys.stderr,
     )
 
 
-def read_scan(path: PathLike, genes: pd.Index | None = None):
-    """Read a scan file back as a :class:`gloam.fcm.MultiStartResult`.
+def _or(value: np.ndarray | None, default: np.ndarray) -> np.ndarray:
+    return default if value is None else value
+
+
+def read_scan(path: PathLike, genes: pd.Index | None = None) -> dict[str, Any]:
+    """Arrays of a scan file (see :func:`run_scan`), ``metrics`` parsed into a dict.
 
     When ``genes`` is given, check that the scan was made on exactly these genes.
     """
-    from gloam.fcm import MultiStartResult
-
     data = _load_npz(path, "scan file")
+    if "metrics" not in data:
+        raise GloamError(
+            f"scan file {str(path)!r} was written by an older gloam; delete it and rerun the scan"
+        )
     if genes is not None and not np.array_equal(data["genes"], np.asarray(genes, dtype=str)):
         raise GloamError(
             f"scan file {str(path)!r} was made on other genes than the prepared matrix; "
             "delete it and rerun the scan"
         )
-    return MultiStartResult(
-        centroids=data["centroids"],
-        memberships=data["memberships"],
-        objectives=data["objectives"],
-        n_iter=data["n_iter"],
-        converged=data["converged"],
-        m=float(data["m"]),
-        best_index=int(data["best_index"]),
-    )
+    data["metrics"] = json.loads(str(data["metrics"]))
+    return data
 
 
 # ------------------------------------------------------------------ selection and consensus
 
+_SELECTION_DEFAULTS = {
+    "n_clusters": "auto",
+    "stable_jaccard": 0.75,
+    "min_core_genes": 10,
+    "max_centroid_correlation": 0.9,
+    "min_coherence": 0.3,
+    "structure_alpha": 0.01,
+    "structure_n_null": 50,
+}
+#: Share of noise genes above which the run is flagged ``mostly_noise``.
+MOSTLY_NOISE_SHARE = 0.5
+
 
 def run_select(
-    prepared: PathLike,
+    scan_input: PathLike,
+    fuzzifier_json: PathLike,
     scan_files: Sequence[PathLike],
     settings: Mapping[str, Any],
+    seed: int,
     *,
     out_validity: PathLike,
     out_selection: PathLike,
     out_consensus: PathLike,
 ) -> None:
-    """Validity indices for every scanned c, the c used, and the consensus for that c.
+    """Test for structure, judge every scanned c, choose c and write its consensus.
 
-    ``settings["n_clusters"]`` is ``"auto"`` (use the recommendation of
-    :func:`gloam.validity.recommend_n_clusters`) or an integer (use it).  The validity TSV
-    has the columns of :func:`gloam.validity.validity_table` (with ``mean_stability``) and,
-    from :func:`gloam.validity.recommendation_reasons`, ``distance_ratio``, ``eligible``,
-    ``recommended`` and ``reason``, plus ``used`` (True for the c used downstream).  The
-    consensus file is described in the module notes.
+    ``settings`` is the selection section of the config: ``n_clusters`` (``"auto"`` or an
+    integer), ``stable_jaccard``, ``min_core_genes``, ``max_centroid_correlation``,
+    ``min_coherence``, ``structure_alpha``, ``structure_n_null``. The structure test
+    (:func:`gloam.structure.structure_test`) uses ``default_rng([seed, 1])``.
 
-    Scan files are read one at a time, so memory holds one c's starts, not the whole scan;
-    the chosen c is therefore read and aligned a second time for its consensus.
+    Writes ``validity.tsv`` (the per-c metrics of every scan file, judged by
+    :func:`gloam.validity.judge_n_clusters`, plus ``used``), ``selection.json``
+    (``n_clusters``, ``method``, ``recommended``, ``reason``, ``scanned``, ``structure``,
+    ``criteria``, ``flags``, ``flag_details``) and ``consensus.npz``
+    (:func:`consensus_arrays`). Every quality flag is also a one-line warning in the log.
     """
-    from gloam.consensus import consensus_partition
-    from gloam.validity import recommendation_reasons, validity_table
+    from gloam.errors import QUALITY_FLAGS, raise_flag
+    from gloam.structure import structure_test
+    from gloam.validity import judge_n_clusters, recommended_n_clusters
 
-    zscores, columns = _read_prepared(prepared)
+    options = {**_SELECTION_DEFAULTS, **settings}
+    data = read_scan_input(scan_input)
+    fuzzifier = _read_json(fuzzifier_json, "fuzzifier choice")
     file_of: dict[int, PathLike] = {}
-    best, stability = {}, {}
+    rows = []
     for path in scan_files:
-        result = read_scan(path, zscores.index)
-        c = result.n_clusters
-        file_of[c] = path
-        # Copies: a view of the best start would keep every start of this c in memory.
-        partition = result.best()
-        best[c] = dataclasses.replace(
-            partition,
-            memberships=partition.memberships.copy(),
-            centroids=partition.centroids.copy(),
-        )
-        stability[c] = float(consensus_partition(result).stability.mean())
-    table = validity_table(zscores.to_numpy(), best, stability=stability)
-    reasons = recommendation_reasons(table).rename(columns={"chosen": "recommended"})
-    table = table.merge(reasons, on="n_clusters", how="left")
-    recommended = int(table.loc[table["recommended"], "n_clusters"].iloc[0])
-    fixed = settings.get("n_clusters", "auto")
-    if fixed == "auto":
-        used, method, reason = (
-            recommended,
-            "auto",
-            str(table.loc[table["recommended"], "reason"].iloc[0]),
+        metrics = read_scan(path, data.zscores.index)["metrics"]
+        file_of[int(metrics["n_clusters"])] = path
+        rows.append(metrics)
+    table = pd.DataFrame(rows)
+    structure = structure_test(
+        data.zscores.to_numpy(),
+        data.m,
+        n_null=int(options["structure_n_null"]),
+        alpha=float(options["structure_alpha"]),
+        rng=np.random.default_rng([int(seed), 1]),
+    )
+    judged = judge_n_clusters(
+        table,
+        structure_present=structure.present,
+        stable_jaccard=float(options["stable_jaccard"]),
+        min_core_genes=int(options["min_core_genes"]),
+        max_centroid_correlation=float(options["max_centroid_correlation"]),
+        min_coherence=float(options["min_coherence"]),
+    )
+    recommended = recommended_n_clusters(judged)
+    if recommended > 1:
+        reason = str(judged.loc[judged["recommended"], "reason"].iloc[0])
+    elif not structure.present:
+        reason = (
+            f"no evidence of cluster structure (p = {structure.p_value:.3g} against one Gaussian "
+            f"with the data's covariance, level {structure.alpha:g}): no clusters are recommended"
         )
     else:
-        used, method, reason = int(fixed), "fixed", "fixed in the config (selection.n_clusters)"
+        reason = (
+            "no scanned c gave clusters that are all robust, sizeable, distinct and coherent: "
+            "no clusters are recommended"
+        )
+    fixed = options["n_clusters"]
+    if fixed == "auto":
+        used, method = recommended, "auto"
+    else:
+        used, method = int(fixed), "fixed"
+        reason = f"fixed in the config (selection.n_clusters); the rule recommends {recommended}"
         if used not in file_of:
             raise GloamError(
                 f"selection.n_clusters = {used} was not scanned (scanned: {sorted(file_of)}); "
                 "include it in the scan range"
             )
-    consensus = _consensus_arrays(read_scan(file_of[used], zscores.index), zscores, columns)
-    table["used"] = table["n_clusters"] == used
-    write_table(table, out_validity)
+    details: dict[str, str] = {}
+
+    def flag(name: str, detail: str) -> None:
+        details[name] = detail
+        raise_flag(name, detail)
+
+    if data.selection_method == "no_replicates":
+        flag("no_replicates", "genes were selected by the variance rule")
+    if not fuzzifier.get("check_passed", True):
+        flag(
+            "fuzzifier_check_failed",
+            f"shuffled-data structure index {fuzzifier.get('check_structure_index', 0):.3f} "
+            f"at m = {data.m:.3f}",
+        )
+    if not structure.present:
+        flag("no_structure", f"p = {structure.p_value:.3g} (level {structure.alpha:g})")
+    elif recommended == 1:
+        flag("no_robust_c", f"scanned c = {sorted(file_of)}; see the failed column of validity")
+    if recommended > 1 and recommended == max(file_of):
+        flag("c_at_scan_edge", f"recommended c = {recommended} is the largest scanned")
+    if used > 1:
+        row = judged.loc[judged["n_clusters"] == used].iloc[0]
+        if bool(row["few_starts_at_optimum"]):
+            flag(
+                "few_starts_at_optimum",
+                f"c = {used}: {int(row['n_at_optimum'])} of {int(row['n_starts'])} starts",
+            )
+        if not bool(row["robust"]):
+            flag("unstable_clusters", f"c = {used}: smallest mean Jaccard {row['min_jaccard']:.2f}")
+        if not bool(row["sizeable"]):
+            flag(
+                "near_empty_clusters",
+                f"c = {used}: smallest cluster has {int(row['min_core_genes'])} core genes",
+            )
+        if not bool(row["coherent"]):
+            flag(
+                "incoherent_clusters",
+                f"c = {used}: smallest coherence {row['min_coherence']:.2f}",
+            )
+        if not bool(row["distinct"]):
+            flag(
+                "similar_centroids",
+                f"c = {used}: centroid correlation {row['max_centroid_correlation']:.2f}",
+            )
+        consensus = consensus_arrays(read_scan(file_of[used], data.zscores.index), data)
+    else:
+        consensus = single_group_arrays(data)
+    n_noise = int((consensus["top_class"] < 0).sum())
+    if n_noise > MOSTLY_NOISE_SHARE * len(data.zscores):
+        flag("mostly_noise", f"{n_noise} of {len(data.zscores)} genes")
+    judged["used"] = judged["n_clusters"] == used
+    write_table(judged, out_validity)
     _write_json(
         {
             "n_clusters": used,
@@ -496,116 +749,248 @@ def run_select(
             "recommended": recommended,
             "reason": reason,
             "scanned": sorted(int(c) for c in file_of),
+            "structure": structure.to_dict(),
+            "criteria": {
+                key: options[key]
+                for key in (
+                    "stable_jaccard",
+                    "min_core_genes",
+                    "max_centroid_correlation",
+                    "min_coherence",
+                )
+            },
+            "flags": [name for name in QUALITY_FLAGS if name in details],
+            "flag_details": details,
         },
         out_selection,
     )
     _write_npz(out_consensus, **consensus)
-
-
-def _consensus_arrays(
-    result: Any, zscores: pd.DataFrame, columns: pd.DataFrame
-) -> dict[str, np.ndarray]:
-    """The arrays of ``consensus.npz`` for one c's starts, clusters in peak-time order."""
-    from gloam.consensus import (
-        align_starts,
-        cluster_names,
-        consensus_partition,
-        order_clusters_by_peak_time,
-        reorder,
+    print(
+        f"gloam: c = {used} ({method}; recommended {recommended}): {reason}; "
+        f"{n_noise} noise genes; flags: {', '.join(details) or 'none'}",
+        file=sys.stderr,
     )
 
-    c = result.n_clusters
-    aligned = align_starts(result)
-    consensus = consensus_partition(aligned, already_aligned=True)
-    conditions = columns["condition"].astype(str).tolist()
+
+def _peak_order(centroids: np.ndarray, data: ScanInput) -> np.ndarray:
+    from gloam.consensus import order_clusters_by_peak_time
+
+    conditions = data.conditions.astype(str).tolist()
     several = len(set(conditions)) > 1
-    permutation = order_clusters_by_peak_time(
-        consensus.centroids, columns["time"].to_numpy(), conditions if several else None
+    return order_clusters_by_peak_time(
+        centroids, np.asarray(data.times, dtype=np.float64), conditions if several else None
     )
-    consensus = reorder(consensus, permutation)
-    # Each start's top cluster in the final numbering: aligned label -> column position.
-    position = np.empty(c, dtype=np.intp)
-    position[consensus.order] = np.arange(c)
-    start_top = position[np.argmax(aligned.memberships, axis=2)].astype(np.int16)
+
+
+def consensus_arrays(scan: Mapping[str, Any], data: ScanInput) -> dict[str, np.ndarray]:
+    """The arrays of ``consensus.npz`` for the chosen c, clusters in peak-time order.
+
+    ``memberships`` (n_genes, c) and ``noise`` (n_genes,) sum to 1 per gene; ``top_class``
+    (n_genes,) is the 0-based cluster of the largest membership, or -1 where the noise
+    membership is the largest; ``top_membership`` is that largest membership;
+    ``start_agreement`` and ``top_agreement`` (n_genes,); ``membership_low``,
+    ``membership_high`` and ``core_frequency`` (n_genes, c); ``jaccard``
+    (n_resamples, c); ``centroids`` (c, n_columns); ``cluster_names``; ``genes``;
+    ``columns``; ``times``; ``conditions``; ``m``; ``noise_distance``; ``metrics``.
+    """
+    from gloam.consensus import cluster_names
+
+    order = _peak_order(scan["centroids"], data)
+    memberships = scan["memberships"][:, order]
+    noise = scan["noise"]
+    return _consensus_record(
+        data,
+        centroids=scan["centroids"][order],
+        memberships=memberships,
+        noise=noise,
+        start_agreement=scan["start_agreement"],
+        membership_low=scan["membership_low"][:, order],
+        membership_high=scan["membership_high"][:, order],
+        core_frequency=scan["core_frequency"][:, order],
+        top_agreement=scan["top_agreement"],
+        jaccard=scan["jaccard"][:, order],
+        noise_distance=float(scan["noise_distance"]),
+        names=cluster_names(memberships.shape[1]),
+        metrics=scan["metrics"],
+    )
+
+
+def single_group_arrays(data: ScanInput) -> dict[str, np.ndarray]:
+    """The consensus record when no clusters are used (c = 1): every gene in one group.
+
+    Its centroid is the mean profile; memberships are 1 and noise 0, so the figures show the
+    spread of all genes around their mean. No core sets are written for it.
+    """
+    X = data.zscores.to_numpy()
+    n_genes = X.shape[0]
+    nan = np.full((n_genes, 1), np.nan)
+    return _consensus_record(
+        data,
+        centroids=X.mean(axis=0, keepdims=True),
+        memberships=np.ones((n_genes, 1)),
+        noise=np.zeros(n_genes),
+        start_agreement=np.ones(n_genes),
+        membership_low=nan,
+        membership_high=nan,
+        core_frequency=nan,
+        top_agreement=np.full(n_genes, np.nan),
+        jaccard=np.full((0, 1), np.nan),
+        noise_distance=float("inf"),
+        names=["C1"],
+        metrics={"n_clusters": 1},
+    )
+
+
+def _consensus_record(data: ScanInput, **parts: Any) -> dict[str, np.ndarray]:
+    memberships, noise = parts["memberships"], parts["noise"]
+    largest = memberships.max(axis=1)
+    top_class = np.where(noise > largest, -1, memberships.argmax(axis=1)).astype(np.int64)
     return {
-        "memberships": consensus.memberships,
-        "membership_sd": consensus.membership_sd,
-        "top_cluster": consensus.top_cluster,
-        "top_membership": consensus.top_membership,
-        "stability": consensus.stability,
-        "centroids": consensus.centroids,
-        "order": consensus.order,
-        "start_top_cluster": start_top,
-        "cluster_names": np.asarray(cluster_names(c), dtype=str),
-        "genes": zscores.index.to_numpy(dtype=str),
-        "columns": zscores.columns.to_numpy(dtype=str),
-        "m": np.float64(consensus.m),
-        "n_starts": np.int64(consensus.n_starts),
+        "memberships": memberships,
+        "noise": noise,
+        "top_class": top_class,
+        "top_membership": np.maximum(largest, noise),
+        "start_agreement": parts["start_agreement"],
+        "membership_low": parts["membership_low"],
+        "membership_high": parts["membership_high"],
+        "core_frequency": parts["core_frequency"],
+        "top_agreement": parts["top_agreement"],
+        "jaccard": parts["jaccard"],
+        "centroids": parts["centroids"],
+        "cluster_names": np.asarray(parts["names"], dtype=str),
+        "genes": data.zscores.index.to_numpy(dtype=str),
+        "columns": data.zscores.columns.to_numpy(dtype=str),
+        "times": np.asarray(data.times, dtype=np.float64),
+        "conditions": np.asarray(data.conditions, dtype=str),
+        "m": np.float64(data.m),
+        "noise_distance": np.float64(parts["noise_distance"]),
+        "metrics": np.str_(json.dumps(parts["metrics"])),
     }
 
 
 def read_consensus(path: PathLike) -> dict[str, np.ndarray]:
-    """Arrays of a consensus file written by :func:`run_select` (see the module notes)."""
-    return _load_npz(path, "consensus file")
+    """Arrays of a consensus file written by :func:`run_select` (see :func:`consensus_arrays`)."""
+    data = _load_npz(path, "consensus file")
+    if "noise" not in data:
+        raise GloamError(
+            f"consensus file {str(path)!r} was written by an older gloam; rerun the select step"
+        )
+    return data
 
 
 # ------------------------------------------------------------------ exports
 
+#: Columns of ``memberships.tsv`` after the cluster and noise columns.
+MEMBERSHIP_EXTRA_COLUMNS = ("top_class", "top_membership", "resampled_top_share", "start_agreement")
+
+
+def membership_frame(consensus: Mapping[str, np.ndarray]) -> pd.DataFrame:
+    """``memberships.tsv`` as a table indexed by gene (full precision)."""
+    names = consensus["cluster_names"].tolist()
+    table = pd.DataFrame(
+        consensus["memberships"],
+        index=pd.Index(consensus["genes"].astype(str), name="gene"),
+        columns=names,
+    )
+    table["noise"] = consensus["noise"]
+    labels = np.asarray([*names, "noise"], dtype=object)
+    table["top_class"] = labels[consensus["top_class"]]  # -1 picks "noise"
+    table["top_membership"] = consensus["top_membership"]
+    table["resampled_top_share"] = consensus["top_agreement"]
+    table["start_agreement"] = consensus["start_agreement"]
+    return table
+
+
+def cluster_frame(consensus: Mapping[str, np.ndarray]) -> pd.DataFrame:
+    """``clusters.tsv``: one row per cluster (see the README's output table)."""
+    from gloam.partition import CORE_LEVEL_FOR_CRITERIA, centroid_correlation
+    from gloam.validity import STABLE_JACCARD
+
+    names = consensus["cluster_names"].tolist()
+    c = len(names)
+    top = consensus["top_class"]
+    core = (top >= 0) & (consensus["top_membership"] >= CORE_LEVEL_FOR_CRITERIA)
+    jaccard = consensus["jaccard"]
+    mean_jaccard = np.nanmean(jaccard, axis=0) if jaccard.shape[0] else np.full(c, np.nan)
+    centroids = consensus["centroids"]
+    peak = np.argmax(centroids, axis=1)
+    correlation = centroid_correlation(centroids)
+    np.fill_diagonal(correlation, -np.inf)
+    nearest = np.argmax(correlation, axis=1) if c > 1 else np.zeros(c, dtype=int)
+    return pd.DataFrame(
+        {
+            "cluster": names,
+            "n_top": np.bincount(top[top >= 0], minlength=c),
+            "n_core": np.bincount(top[core], minlength=c),
+            "jaccard": mean_jaccard,
+            "stable": mean_jaccard >= STABLE_JACCARD,
+            "coherence": np.einsum("kj,kj->k", centroids, centroids)
+            / max(len(consensus["columns"]) - 1, 1),
+            "peak_time": consensus["times"][peak],
+            "peak_condition": consensus["conditions"][peak],
+            "nearest": [names[j] if c > 1 else "" for j in nearest],
+            "nearest_correlation": [
+                float(correlation[k, j]) if c > 1 else np.nan for k, j in enumerate(nearest)
+            ],
+        }
+    )
+
+
+def robustness_frame(consensus: Mapping[str, np.ndarray]) -> pd.DataFrame:
+    """``robustness.tsv``: per gene and cluster the resampling interval and core share."""
+    names = consensus["cluster_names"].tolist()
+    parts = {}
+    for k, name in enumerate(names):
+        parts[f"{name}_low"] = consensus["membership_low"][:, k]
+        parts[f"{name}_high"] = consensus["membership_high"][:, k]
+        parts[f"{name}_core_share"] = consensus["core_frequency"][:, k]
+    return pd.DataFrame(parts, index=pd.Index(consensus["genes"].astype(str), name="gene"))
+
 
 def export_tables(
-    consensus_npz: PathLike, out_memberships: PathLike, out_centroids: PathLike
+    consensus_npz: PathLike,
+    *,
+    out_memberships: PathLike,
+    out_centroids: PathLike,
+    out_clusters: PathLike,
+    out_robustness: PathLike,
 ) -> None:
-    """Write ``memberships.tsv`` and ``centroids.tsv``.
+    """Write ``memberships.tsv``, ``centroids.tsv``, ``clusters.tsv`` and ``robustness.tsv``.
 
-    ``memberships.tsv``: ``gene``, one column per cluster (``C1``... consensus memberships,
-    each row sums to 1), ``top_cluster``, ``top_membership``, ``stability``.
-    ``centroids.tsv``: ``cluster``, then one column per prepared column (time point, named
-    as in the prepared matrix), z-score units.
+    Values are written at full precision (:func:`gloam.io.write_table`). Columns are listed
+    in the README's output table.
     """
-    from gloam.consensus import Consensus, membership_table
-
     data = read_consensus(consensus_npz)
-    consensus = Consensus(
-        memberships=data["memberships"],
-        membership_sd=data["membership_sd"],
-        top_cluster=data["top_cluster"],
-        top_membership=data["top_membership"],
-        stability=data["stability"],
-        centroids=data["centroids"],
-        order=data["order"],
-        n_starts=int(data["n_starts"]),
-        m=float(data["m"]),
-    )
-    table = membership_table(consensus, data["genes"].tolist())
-    write_table(table.reset_index(), out_memberships)
+    write_table(membership_frame(data).reset_index(), out_memberships)
     centroids = pd.DataFrame(
         data["centroids"],
         index=pd.Index(data["cluster_names"].tolist(), name="cluster"),
         columns=data["columns"].tolist(),
     )
     write_table(centroids, out_centroids, index=True)
-
-
-def _read_memberships(path: PathLike) -> pd.DataFrame:
-    table = pd.read_csv(path, sep="\t", dtype={"gene": str}, keep_default_na=False)
-    return table.set_index("gene")
-
-
-def _cluster_columns(table: pd.DataFrame) -> list[str]:
-    return [c for c in table.columns if c not in ("top_cluster", "top_membership", "stability")]
+    write_table(cluster_frame(data), out_clusters)
+    write_table(robustness_frame(data).reset_index(), out_robustness)
 
 
 def export_gene_sets(
-    memberships_tsv: PathLike, thresholds: Sequence[float], out_dir: PathLike, prefix: str = "gloam"
+    consensus_npz: PathLike, thresholds: Sequence[float], out_dir: PathLike, prefix: str = "gloam"
 ) -> None:
     """Write every gene-set file (see :mod:`gloam.genesets`) into ``out_dir`` at once.
 
-    The files are written into a hidden folder beside ``out_dir`` that replaces it only when
-    complete, so an interrupted export never leaves a partial set of lists.
+    Built from the full-precision consensus, never from a rounded table. A gene whose largest
+    membership is the noise class is never a core gene. With no clusters (c = 1) only the
+    background and empty GMT files are written. The files are written into a hidden folder
+    beside ``out_dir`` that replaces it only when complete, so an interrupted export never
+    leaves a partial set of lists.
     """
     from gloam.genesets import write_gene_sets
 
-    table = _read_memberships(memberships_tsv)
+    data = read_consensus(consensus_npz)
+    genes = data["genes"].astype(str)
+    memberships = pd.DataFrame(
+        data["memberships"], index=genes, columns=data["cluster_names"].tolist()
+    )
+    noise = pd.Series(data["noise"], index=genes)
     target = Path(out_dir)
     target.parent.mkdir(parents=True, exist_ok=True)
     staging = Path(
@@ -613,11 +998,13 @@ def export_gene_sets(
     )
     try:
         write_gene_sets(
-            table[_cluster_columns(table)],
+            memberships,
             thresholds,
             staging,
-            background_genes=table.index.tolist(),
+            background_genes=genes.tolist(),
             prefix=prefix,
+            noise=noise,
+            core_sets=memberships.shape[1] > 1,
         )
         staging.chmod(0o755)
         if target.exists():
@@ -661,14 +1048,18 @@ def export_h5ad(
     written by the preparation step, plus:
 
     ``var``
-        ``gloam_top_cluster``, ``gloam_top_membership``, ``gloam_stability`` and
+        ``gloam_top_class`` (cluster name or ``noise``), ``gloam_top_membership``,
+        ``gloam_noise``, ``gloam_resampled_top_share``, ``gloam_start_agreement`` and
         ``gloam_membership_<cluster>`` per cluster.
     ``varm["gloam_memberships"]``
-        Consensus memberships, n_genes x n_clusters (columns in ``uns["gloam"]["clusters"]``).
+        Memberships, n_genes x n_clusters (columns in ``uns["gloam"]["clusters"]``).
+    ``varm["gloam_membership_low"]``, ``varm["gloam_membership_high"]``
+        Resampling interval of each membership (5th and 95th percentile).
     ``uns["gloam"]``
         ``centroids`` (n_clusters x n_columns, z-score units), ``clusters``, ``columns``,
-        ``n_clusters``, ``m``, ``seed``, ``n_starts``, ``fuzzifier`` and ``selection``
-        (the JSON records), ``settings`` (the run's settings) and ``versions`` (packages).
+        ``n_clusters``, ``m``, ``seed``, ``noise_distance``, ``fuzzifier`` and ``selection``
+        (the JSON records, with the structure test and the quality flags), ``settings``
+        (the run's settings) and ``versions`` (packages).
     """
     import anndata
 
@@ -680,16 +1071,18 @@ def export_h5ad(
             f"consensus file {str(consensus_npz)!r} does not match the genes of {str(prepared)!r}; "
             "rerun the clustering"
         )
+    table = membership_frame(consensus)
     names = consensus["cluster_names"].tolist()
-    memberships = consensus["memberships"]
-    data.var[f"{VAR_PREFIX}top_cluster"] = pd.Categorical(
-        np.asarray(names, dtype=object)[consensus["top_cluster"]], categories=names
+    data.var[f"{VAR_PREFIX}top_class"] = pd.Categorical(
+        table["top_class"].to_numpy(), categories=[*names, "noise"]
     )
-    data.var[f"{VAR_PREFIX}top_membership"] = consensus["top_membership"]
-    data.var[f"{VAR_PREFIX}stability"] = consensus["stability"]
+    for column in ("top_membership", "noise", "resampled_top_share", "start_agreement"):
+        data.var[f"{VAR_PREFIX}{column}"] = table[column].to_numpy()
     for k, name in enumerate(names):
-        data.var[f"{VAR_PREFIX}membership_{name}"] = memberships[:, k]
-    data.varm[MEMBERSHIPS_VARM_KEY] = memberships
+        data.var[f"{VAR_PREFIX}membership_{name}"] = consensus["memberships"][:, k]
+    data.varm[MEMBERSHIPS_VARM_KEY] = consensus["memberships"]
+    data.varm[f"{MEMBERSHIPS_VARM_KEY[:-1]}_low"] = consensus["membership_low"]
+    data.varm[f"{MEMBERSHIPS_VARM_KEY[:-1]}_high"] = consensus["membership_high"]
     data.uns[RESULT_KEY] = _h5ad_safe(
         {
             "centroids": consensus["centroids"],
@@ -697,7 +1090,7 @@ def export_h5ad(
             "columns": consensus["columns"].tolist(),
             "n_clusters": len(names),
             "m": float(consensus["m"]),
-            "n_starts": int(consensus["n_starts"]),
+            "noise_distance": float(consensus["noise_distance"]),
             "seed": settings.get("seed"),
             "fuzzifier": _read_json(fuzzifier_json, "fuzzifier choice"),
             "selection": _read_json(selection_json, "selection"),
@@ -711,62 +1104,61 @@ def export_h5ad(
 
 # ------------------------------------------------------------------ figures
 
-
-def _core_sizes(memberships: pd.DataFrame, thresholds: Sequence[float]) -> dict[float, np.ndarray]:
-    from gloam.genesets import core_genes
-
-    sizes = {}
-    for threshold in thresholds:
-        sets = core_genes(memberships, float(threshold))
-        sizes[float(threshold)] = np.array([len(sets[c]) for c in memberships.columns])
-    return sizes
+FigurePaths = tuple[PathLike, ...]  # (PNG, PDF, SVG)
 
 
 def figure_profiles(
     prepared: PathLike,
-    memberships_tsv: PathLike,
-    centroids_tsv: PathLike,
-    thresholds: Sequence[float],
+    consensus_npz: PathLike,
+    core_threshold: float,
     time_unit: str,
-    out_png: PathLike,
-    out_pdf: PathLike,
+    paths: FigurePaths,
 ) -> None:
     """Per-cluster temporal profiles (see :func:`gloam.plots.plot_cluster_profiles`)."""
+    import anndata
+
     from gloam.plots import plot_cluster_profiles, save_figure
 
-    zscores, columns = _read_prepared(prepared)
-    table = _read_memberships(memberships_tsv)
-    clusters = _cluster_columns(table)
-    memberships = table.loc[zscores.index, clusters]
-    centroids = pd.read_csv(centroids_tsv, sep="\t", index_col="cluster")
-    conditions = columns["condition"].astype(str).tolist()
+    consensus = read_consensus(consensus_npz)
+    prepared_data = anndata.read_h5ad(prepared)
+    log_means = np.asarray(prepared_data.layers["log_mean"], dtype=np.float64).T
+    zscores = np.asarray(prepared_data.X, dtype=np.float64).T
+    conditions = consensus["conditions"].astype(str).tolist()
+    jaccard = consensus["jaccard"]
     figure = plot_cluster_profiles(
-        zscores.to_numpy(),
-        columns["time"].to_numpy(),
-        memberships.to_numpy(),
-        centroids.loc[clusters, zscores.columns].to_numpy(),
+        zscores,
+        consensus["times"],
+        consensus["memberships"],
+        consensus["centroids"],
+        noise=consensus["noise"] if consensus["noise"].any() else None,
+        log_means=log_means,
         conditions=conditions if len(set(conditions)) > 1 else None,
-        core_sizes=_core_sizes(memberships, thresholds),
-        cluster_labels=clusters,
+        core_threshold=float(core_threshold),
+        cluster_labels=consensus["cluster_names"].tolist(),
         time_unit=time_unit,
+        jaccard=np.nanmean(jaccard, axis=0) if jaccard.shape[0] else None,
     )
-    save_figure(figure, out_png, out_pdf)
+    save_figure(figure, *paths)
 
 
-def figure_validity(
-    validity_tsv: PathLike, selection_json: PathLike, out_png: PathLike, out_pdf: PathLike
-) -> None:
-    """Validity indices against c with the c used marked."""
+def figure_validity(validity_tsv: PathLike, selection_json: PathLike, paths: FigurePaths) -> None:
+    """The criteria that decide c, for every scanned c, with the c used marked."""
     from gloam.plots import plot_validity, save_figure
 
     table = pd.read_csv(validity_tsv, sep="\t")
-    chosen = int(_read_json(selection_json, "selection")["n_clusters"])
-    save_figure(plot_validity(table, chosen), out_png, out_pdf)
+    selection = _read_json(selection_json, "selection")
+    criteria = selection.get("criteria", {})
+    figure = plot_validity(
+        table,
+        int(selection["n_clusters"]),
+        stable_jaccard=float(criteria.get("stable_jaccard", 0.75)),
+        min_core_size=int(criteria.get("min_core_genes", 10)),
+        max_corr=float(criteria.get("max_centroid_correlation", 0.9)),
+    )
+    save_figure(figure, *paths)
 
 
-def figure_fuzzifier(
-    fuzzifier_json: PathLike, curve_tsv: PathLike, out_png: PathLike, out_pdf: PathLike
-) -> None:
+def figure_fuzzifier(fuzzifier_json: PathLike, curve_tsv: PathLike, paths: FigurePaths) -> None:
     """The randomised-data curve with the m used (and the formula's m) marked."""
     from gloam.plots import plot_fuzzifier_curve, save_figure
 
@@ -775,23 +1167,22 @@ def figure_fuzzifier(
     figure = plot_fuzzifier_curve(
         curve, float(choice["m"]), formula_m=float(choice["formula_m"]), method=choice["method"]
     )
-    save_figure(figure, out_png, out_pdf)
+    save_figure(figure, *paths)
 
 
-def figure_centroid_correlation(
-    centroids_tsv: PathLike, out_png: PathLike, out_pdf: PathLike
-) -> None:
-    """Centroid-to-centroid Pearson correlation heatmap."""
-    from gloam.plots import plot_centroid_correlation, save_figure
+def figure_overview(consensus_npz: PathLike, paths: FigurePaths) -> None:
+    """Cluster overview: sizes, robustness, peak time and similarity."""
+    from gloam.plots import plot_cluster_overview, save_figure
 
-    centroids = pd.read_csv(centroids_tsv, sep="\t", index_col="cluster")
-    figure = plot_centroid_correlation(centroids.to_numpy(), centroids.index.astype(str).tolist())
-    save_figure(figure, out_png, out_pdf)
+    consensus = read_consensus(consensus_npz)
+    table = cluster_frame(consensus)
+    figure = plot_cluster_overview(
+        table, consensus["centroids"], cluster_labels=consensus["cluster_names"].tolist()
+    )
+    save_figure(figure, *paths)
 
 
 # ------------------------------------------------------------------ the two export stages
-
-FigurePaths = tuple[PathLike, PathLike]  # (PNG, PDF)
 
 
 def export_results(
@@ -805,27 +1196,34 @@ def export_results(
     *,
     memberships: PathLike,
     centroids: PathLike,
+    clusters: PathLike,
+    robustness: PathLike,
     h5ad: PathLike,
     validity_figure: FigurePaths,
     fuzzifier_figure: FigurePaths,
-    correlation_figure: FigurePaths,
+    overview_figure: FigurePaths,
 ) -> None:
     """Everything of a run that does not depend on the core-gene thresholds.
 
     The tables (:func:`export_tables`), ``gloam.h5ad`` (:func:`export_h5ad`) and the
-    validity, fuzzifier and centroid-correlation figures, each as PNG and PDF.
+    validity, fuzzifier and cluster-overview figures (PNG, PDF, SVG).
     """
-    export_tables(consensus_npz, memberships, centroids)
+    export_tables(
+        consensus_npz,
+        out_memberships=memberships,
+        out_centroids=centroids,
+        out_clusters=clusters,
+        out_robustness=robustness,
+    )
     export_h5ad(prepared, consensus_npz, fuzzifier_json, selection_json, settings, h5ad)
-    figure_validity(validity_tsv, selection_json, *validity_figure)
-    figure_fuzzifier(fuzzifier_json, fuzzifier_curve, *fuzzifier_figure)
-    figure_centroid_correlation(centroids, *correlation_figure)
+    figure_validity(validity_tsv, selection_json, validity_figure)
+    figure_fuzzifier(fuzzifier_json, fuzzifier_curve, fuzzifier_figure)
+    figure_overview(consensus_npz, overview_figure)
 
 
 def export_core_genes(
     prepared: PathLike,
-    memberships_tsv: PathLike,
-    centroids_tsv: PathLike,
+    consensus_npz: PathLike,
     thresholds: Sequence[float],
     time_unit: str,
     *,
@@ -836,12 +1234,10 @@ def export_core_genes(
     """Everything of a run that depends on the core-gene thresholds.
 
     The gene-set folder (:func:`export_gene_sets`) and the cluster-profile figure, whose
-    panels give the core-gene counts (:func:`figure_profiles`).
+    bands show the core genes at the largest threshold (:func:`figure_profiles`).
     """
-    export_gene_sets(memberships_tsv, thresholds, genesets, prefix=prefix)
-    figure_profiles(
-        prepared, memberships_tsv, centroids_tsv, thresholds, time_unit, *profiles_figure
-    )
+    export_gene_sets(consensus_npz, thresholds, genesets, prefix=prefix)
+    figure_profiles(prepared, consensus_npz, max(thresholds), time_unit, profiles_figure)
 
 
 # ------------------------------------------------------------------ summary across runs
@@ -851,46 +1247,67 @@ def summarise_runs(
     runs: Sequence[Mapping[str, Any]],
     fuzzifier_files: Sequence[PathLike],
     selection_files: Sequence[PathLike],
-    membership_files: Sequence[PathLike],
+    consensus_files: Sequence[PathLike],
     thresholds: Sequence[float],
     out_tsv: PathLike,
 ) -> None:
-    """One row per run: what went in, which m and c were used, how stable and core it is.
+    """One row per run: what went in, which m and c were used, how robust and core it is.
 
     Columns: ``run``, ``dataset``, ``condition``, ``variant`` (empty when not used),
-    ``n_genes_clustered``, ``m``, ``m_method``, ``n_clusters``, ``n_clusters_method``,
-    ``recommended_n_clusters``, ``mean_stability`` (mean over genes of the share of starts
-    agreeing on the top cluster), and per threshold ``t``: ``core_genes_<t>`` (genes core in
-    some cluster) and ``core_sizes_<t>`` (``C1=…;C2=…``).
+    ``n_genes_clustered``, ``n_noise`` (genes whose largest membership is noise), ``m``,
+    ``m_method``, ``n_clusters``, ``n_clusters_method``, ``recommended_n_clusters``,
+    ``structure_p_value``, ``min_jaccard`` (smallest mean resampling Jaccard of a cluster at
+    the c used), ``mean_start_agreement``, ``flags`` (quality flags, comma-separated), and
+    per threshold ``t``: ``core_genes_<t>`` (genes core in some cluster) and
+    ``core_sizes_<t>`` (``C1=…;C2=…``). Each run also gets one line on stderr (the job's
+    log and the terminal) with m, c and its flags.
     """
-    if not len(runs) == len(fuzzifier_files) == len(selection_files) == len(membership_files):
-        raise GloamError("summary needs one fuzzifier, selection and memberships file per run")
+    if not len(runs) == len(fuzzifier_files) == len(selection_files) == len(consensus_files):
+        raise GloamError("summary needs one fuzzifier, selection and consensus file per run")
     rows = []
-    for run, fuzzifier, selection, memberships_tsv in zip(
-        runs, fuzzifier_files, selection_files, membership_files, strict=True
+    for run, fuzzifier, selection, consensus_npz in zip(
+        runs, fuzzifier_files, selection_files, consensus_files, strict=True
     ):
         choice = _read_json(fuzzifier, "fuzzifier choice")
         chosen = _read_json(selection, "selection")
-        table = _read_memberships(memberships_tsv)
-        memberships = table[_cluster_columns(table)]
+        consensus = read_consensus(consensus_npz)
+        memberships = consensus["memberships"]
+        names = consensus["cluster_names"].tolist()
+        eligible = consensus["top_class"] >= 0
+        jaccard = consensus["jaccard"]
+        flags = ",".join(chosen.get("flags", []))
         row: dict[str, Any] = {
             "run": run["run"],
             "dataset": run["dataset"],
             "condition": run.get("condition") or "",
             "variant": run.get("variant") or "",
-            "n_genes_clustered": int(len(table)),
+            "n_genes_clustered": int(memberships.shape[0]),
+            "n_noise": int((~eligible).sum()),
             "m": float(choice["m"]),
             "m_method": choice["method"],
             "n_clusters": int(chosen["n_clusters"]),
             "n_clusters_method": chosen["method"],
             "recommended_n_clusters": int(chosen["recommended"]),
-            "mean_stability": float(table["stability"].mean()),
+            "structure_p_value": float(chosen.get("structure", {}).get("p_value", np.nan)),
+            "min_jaccard": float(np.nanmin(np.nanmean(jaccard, axis=0)))
+            if jaccard.shape[0]
+            else np.nan,
+            "mean_start_agreement": float(consensus["start_agreement"].mean()),
+            "flags": flags,
         }
-        for threshold, sizes in _core_sizes(memberships, thresholds).items():
-            core = (memberships.to_numpy() >= threshold).any(axis=1)
-            row[f"core_genes_{threshold:g}"] = int(core.sum())
+        for threshold in thresholds:
+            core = (memberships >= threshold) & eligible[:, None]
+            if len(names) == 1:
+                core[:] = False
+            row[f"core_genes_{threshold:g}"] = int(core.any(axis=1).sum())
             row[f"core_sizes_{threshold:g}"] = ";".join(
-                f"{name}={int(size)}" for name, size in zip(memberships.columns, sizes, strict=True)
+                f"{name}={int(size)}" for name, size in zip(names, core.sum(axis=0), strict=True)
             )
         rows.append(row)
+        print(
+            f"gloam: run {run['run']}: m = {float(choice['m']):.3f}, "
+            f"c = {int(chosen['n_clusters'])} ({chosen['method']}), {row['n_noise']} noise "
+            f"genes, flags: {flags or 'none'}",
+            file=sys.stderr,
+        )
     write_table(pd.DataFrame(rows), out_tsv)

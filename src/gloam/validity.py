@@ -6,9 +6,11 @@ Every index takes plain arrays, oriented as the engine uses them:
 - ``V`` : ndarray of shape (n_clusters, n_timepoints), the centroids;
 - ``U`` : ndarray of shape (n_genes, n_clusters), memberships whose rows sum to 1.
 
-:func:`validity_table` evaluates all indices for one partition per number of clusters and
-:func:`recommend_n_clusters` applies the documented rule to that table;
-:func:`recommendation_reasons` shows, for each number of clusters, why it was or was not chosen.
+:func:`validity_table` evaluates all indices for one partition per number of clusters. The
+indices are diagnostics; the number of clusters is chosen by :func:`judge_n_clusters`, which
+judges each c on its own merits (structure present, clusters robust under resampling, sizeable
+and distinct) and recommends the largest c that passes, so that widening the scanned range can
+change the answer only when a larger c itself passes.
 
 References
 ----------
@@ -20,6 +22,10 @@ References
    the fuzzy c-means method. *Proceedings of the 5th Fuzzy Systems Symposium*, 247-250.
 .. [4] Schwämmle, V. and Jensen, O. N. (2010). A simple and fast method to determine the
    parameters for fuzzy c-means cluster analysis. *Bioinformatics* 26(22), 2841-2848.
+.. [5] Hennig, C. (2007). Cluster-wise assessment of cluster stability. *Computational
+   Statistics & Data Analysis* 52, 258-271.
+.. [6] Liu, Y., Hayes, D. N., Nobel, A. and Marron, J. S. (2008). Statistical significance of
+   clustering for high-dimension, low-sample size data. *JASA* 103, 1281-1293.
 """
 
 from __future__ import annotations
@@ -43,10 +49,14 @@ __all__ = [
     "fukuyama_sugeno",
     "min_centroid_distance",
     "validity_table",
-    "recommendation_reasons",
-    "recommend_n_clusters",
+    "judge_n_clusters",
+    "recommended_n_clusters",
+    "CRITERIA",
     "VALIDITY_COLUMNS",
-    "DEFAULT_COLLAPSE_RATIO",
+    "STABLE_JACCARD",
+    "MIN_CORE_GENES",
+    "MAX_CENTROID_CORRELATION",
+    "MIN_COHERENCE",
 ]
 
 #: Columns of :func:`validity_table`, in order (``mean_stability`` only when stability is given).
@@ -61,12 +71,21 @@ VALIDITY_COLUMNS = (
     "min_centroid_distance",
 )
 
-#: A step c -> c' whose minimum centroid distance falls below this share of its previous value
-#: (at least halves) is a candidate collapse; see :func:`recommend_n_clusters`.
-DEFAULT_COLLAPSE_RATIO = 0.5
-#: A candidate step only counts when the distance before it is still at least this share of
-#: the largest distance seen at smaller c (its centroids had not already collapsed).
-UNCOLLAPSED_SHARE = 0.1
+#: The criteria every cluster of a c must meet, in the order they are reported.
+CRITERIA = ("structure", "robust", "sizeable", "distinct", "coherent")
+#: Mean resampling Jaccard at or above which a cluster counts as stable (Hennig 2007 calls
+#: clusters with values of 0.75 or more stable; the level is from memory of that paper).
+STABLE_JACCARD = 0.75
+#: Fewest genes a cluster must hold as its top class with membership >= 0.5 (gloam's
+#: convention: fewer genes make no useful list for enrichment).
+MIN_CORE_GENES = 10
+#: Largest Pearson correlation two centroids may have and still count as distinct responses
+#: (gloam's convention).
+MAX_CENTROID_CORRELATION = 0.9
+#: Smallest coherence (mean correlation between a cluster's gene profiles, measured as the
+#: squared centroid norm; :func:`gloam.partition.centroid_coherence`) of a cluster that is a
+#: shared response rather than genes gathered near the flat profile (gloam's convention).
+MIN_COHERENCE = 0.3
 
 
 def _as_memberships(U: np.ndarray) -> np.ndarray:
@@ -368,185 +387,149 @@ def validity_table(
     return pd.DataFrame(rows)
 
 
-def _check_table(table: pd.DataFrame, collapse_ratio: float) -> pd.DataFrame:
-    missing = {"n_clusters", "xie_beni", "min_centroid_distance"} - set(table.columns)
+def judge_n_clusters(
+    table: pd.DataFrame,
+    *,
+    structure_present: bool,
+    stable_jaccard: float = STABLE_JACCARD,
+    min_core_genes: int = MIN_CORE_GENES,
+    max_centroid_correlation: float = MAX_CENTROID_CORRELATION,
+    min_coherence: float = MIN_COHERENCE,
+) -> pd.DataFrame:
+    """Judge every scanned c on its own merits and recommend one.
+
+    A c *passes* when all of :data:`CRITERIA` hold:
+
+    ``structure``
+        The selected genes show more cluster structure than one Gaussian with the same
+        covariance (the same verdict for every c; :mod:`gloam.structure`, after Liu et al. 2008).
+    ``robust``
+        Every cluster's mean Jaccard under resampling is at least ``stable_jaccard``
+        (Hennig 2007).
+    ``sizeable``
+        Every cluster is the top class, with membership >= 0.5, of at least ``min_core_genes``
+        genes.
+    ``distinct``
+        No two centroids correlate above ``max_centroid_correlation``.
+    ``coherent``
+        Every cluster's genes share a response: its coherence (mean correlation between the
+        profiles of its genes, :func:`gloam.partition.centroid_coherence`) is at least
+        ``min_coherence``. Without it, genes that fit no response can gather into a robust
+        cluster around the flat profile.
+
+    The recommendation is the **largest c that passes**; when none passes (or there is no
+    structure) it is 1, meaning "no clusters the data support". The judgement of each c reads
+    only that c's own row, so adding larger c to the scan can change the recommendation only
+    when one of them passes, and adding smaller c never changes it unless they pass and no
+    larger c does.
+
+    Parameters
+    ----------
+    table : pandas.DataFrame
+        One row per c with ``n_clusters``, ``min_jaccard``, ``min_core_genes`` and
+        ``max_centroid_correlation`` and ``min_coherence`` (see
+        :func:`gloam.partition.solve_partition`).
+    structure_present : bool
+        Verdict of the structure test.
+    stable_jaccard, min_core_genes, max_centroid_correlation, min_coherence
+        Thresholds of the criteria.
+
+    Returns
+    -------
+    pandas.DataFrame
+        ``table`` sorted by c with the columns ``structure``, ``robust``, ``sizeable``,
+        ``distinct``, ``coherent``, ``passes`` (bool), ``failed`` (the failed criteria,
+        comma-separated, empty when none), ``recommended`` (True for at most one row) and
+        ``reason`` (one sentence in plain words).
+
+    Raises
+    ------
+    GloamError
+        If the table lacks a column, is empty or repeats a c, or a threshold is out of range.
+    """
+    needed = {
+        "n_clusters",
+        "min_jaccard",
+        "min_core_genes",
+        "max_centroid_correlation",
+        "min_coherence",
+    }
+    missing = needed - set(table.columns)
     if missing:
         raise GloamError(
-            f"validity table lacks column(s) {sorted(missing)}; build it with validity_table()"
+            f"validity table lacks column(s) {sorted(missing)}; build it from the scan files"
         )
     if len(table) == 0:
         raise GloamError("validity table is empty; scan at least one number of clusters")
     if table["n_clusters"].duplicated().any():
         raise GloamError("validity table has the same n_clusters twice; keep one row per c")
-    if not 0 < collapse_ratio < 1:
+    if not 0 < stable_jaccard <= 1:
+        raise GloamError(f"stable_jaccard must be in (0, 1]; got {stable_jaccard}")
+    if min_core_genes < 1:
+        raise GloamError(f"min_core_genes must be at least 1; got {min_core_genes}")
+    if not -1 <= max_centroid_correlation <= 1:
         raise GloamError(
-            f"collapse_ratio must be between 0 and 1 (exclusive); got {collapse_ratio}"
+            f"max_centroid_correlation must be in [-1, 1]; got {max_centroid_correlation}"
         )
-    return table.sort_values("n_clusters", kind="stable").reset_index(drop=True)
-
-
-def recommendation_reasons(
-    table: pd.DataFrame, *, collapse_ratio: float = DEFAULT_COLLAPSE_RATIO
-) -> pd.DataFrame:
-    """Apply the rule of :func:`recommend_n_clusters` and explain it for every c.
-
-    Parameters
-    ----------
-    table : pandas.DataFrame
-        Output of :func:`validity_table` (needs ``n_clusters``, ``xie_beni``,
-        ``min_centroid_distance``).
-    collapse_ratio : float, default 0.5
-        See :func:`recommend_n_clusters`.
-
-    Returns
-    -------
-    pandas.DataFrame
-        One row per c, sorted by c, with columns:
-
-        ``n_clusters``
-            c.
-        ``distance_ratio``
-            ``min_centroid_distance`` at this c divided by its value at the previous scanned c
-            (NaN for the smallest c, or when the previous value is 0).
-        ``eligible``
-            True for the c before the collapse (every c when there is no collapse).
-        ``chosen``
-            True for exactly one row, the recommended c.
-        ``reason``
-            One sentence in plain words.
-
-    Raises
-    ------
-    GloamError
-        If the table lacks the needed columns, is empty, repeats a c, or ``collapse_ratio`` is
-        outside (0, 1).
-    """
-    table = _check_table(table, collapse_ratio)
-    c = table["n_clusters"].to_numpy(dtype=int)
-    distance = table["min_centroid_distance"].to_numpy(dtype=float)
-    xb = table["xie_beni"].to_numpy(dtype=float)
-
-    ratio = np.full(len(c), np.nan)
-    previous = distance[:-1]
-    ratio[1:] = np.divide(
-        distance[1:], previous, out=np.full(len(c) - 1, np.nan), where=previous > 0
-    )
-    # The collapse is the sharpest fall among steps that (a) at least halve the distance and
-    # (b) start from centroids still apart (not already collapsed at a smaller c). NaN
-    # compares False, so a step from an already-zero distance is never the collapse.
-    running_max = np.maximum.accumulate(np.where(np.isfinite(distance), distance, 0.0))
-    started_apart = np.zeros(len(c), dtype=bool)
-    started_apart[1:] = previous >= UNCOLLAPSED_SHARE * running_max[:-1]
-    candidate = (ratio < collapse_ratio) & started_apart
-    collapse = int(np.argmin(np.where(candidate, ratio, np.inf))) if candidate.any() else None
-
-    if collapse is not None:
-        eligible = np.arange(len(c)) < collapse
-        chosen_index = collapse - 1
-    else:
-        eligible = np.ones(len(c), dtype=bool)
-        # argmin returns the first of equal values and c is sorted: ties go to the smaller c.
-        score = np.where(np.isnan(xb), np.inf, xb)
-        chosen_index = int(np.argmin(score))
-    chosen = np.zeros(len(c), dtype=bool)
-    chosen[chosen_index] = True
-
+    judged = table.sort_values("n_clusters", kind="stable").reset_index(drop=True).copy()
+    jaccard = judged["min_jaccard"].to_numpy(dtype=float)
+    core = judged["min_core_genes"].to_numpy(dtype=float)
+    correlation = judged["max_centroid_correlation"].to_numpy(dtype=float)
+    judged["structure"] = bool(structure_present)
+    judged["robust"] = np.nan_to_num(jaccard, nan=-1.0) >= stable_jaccard
+    judged["sizeable"] = core >= min_core_genes
+    # A single flat centroid has no correlation (NaN): nothing to be confused with.
+    judged["distinct"] = ~(correlation > max_centroid_correlation)
+    coherence = judged["min_coherence"].to_numpy(dtype=float)
+    judged["coherent"] = np.nan_to_num(coherence, nan=-1.0) >= min_coherence
+    passed = judged[list(CRITERIA)].to_numpy(dtype=bool)
+    judged["passes"] = passed.all(axis=1)
+    judged["failed"] = [
+        ",".join(name for name, ok in zip(CRITERIA, row, strict=True) if not ok) for row in passed
+    ]
+    recommended = recommended_n_clusters(judged)
+    judged["recommended"] = judged["n_clusters"] == recommended
     reasons = []
-    for i in range(len(c)):
-        if collapse is None:
-            if chosen[i]:
-                reasons.append(
-                    "smallest Xie–Beni index; the minimum centroid distance never collapsed in "
-                    "the scanned range, so consider scanning larger numbers of clusters"
-                )
-            else:
-                reasons.append(
-                    f"Xie–Beni index {xb[i]:.4g} is larger than {xb[chosen_index]:.4g} at "
-                    f"c = {c[chosen_index]}"
-                )
-        elif chosen[i]:
+    for i, row in judged.iterrows():
+        c = int(row["n_clusters"])
+        if not structure_present:
             reasons.append(
-                "largest number of clusters before the minimum centroid distance collapsed: "
-                "all its centroids are still well apart"
+                "no evidence of cluster structure: the genes look like one Gaussian cloud, so "
+                "any split into clusters would be arbitrary"
             )
-        elif i == collapse:
-            reasons.append(
-                f"the minimum centroid distance fell to {ratio[i]:.3g} of its value at "
-                f"c = {c[i - 1]}, the sharpest fall in the scan: two centroids now share one "
-                "group"
+            continue
+        problems = []
+        if not row["robust"]:
+            problems.append(
+                f"a cluster dissolves under resampling (smallest mean Jaccard "
+                f"{jaccard[i]:.2f} < {stable_jaccard:g})"
             )
-        elif eligible[i]:
+        if not row["sizeable"]:
+            problems.append(f"a cluster has only {int(core[i])} core genes (< {min_core_genes})")
+        if not row["distinct"]:
+            problems.append(
+                f"two centroids are nearly the same response (r = {correlation[i]:.2f} > "
+                f"{max_centroid_correlation:g})"
+            )
+        if not row["coherent"]:
+            problems.append(
+                f"a cluster's genes barely agree (coherence {coherence[i]:.2f} < "
+                f"{min_coherence:g}): it gathers genes near the flat profile"
+            )
+        if problems:
+            reasons.append("fails: " + "; ".join(problems))
+        elif c == recommended:
             reasons.append(
-                f"fewer clusters than c = {c[chosen_index]}, whose centroids are still well apart"
+                "largest c whose clusters are all robust under resampling, sizeable, distinct "
+                "and coherent"
             )
         else:
-            reasons.append(
-                f"beyond the collapse of the minimum centroid distance at c = {c[collapse]}"
-            )
-    return pd.DataFrame(
-        {
-            "n_clusters": c,
-            "distance_ratio": ratio,
-            "eligible": eligible,
-            "chosen": chosen,
-            "reason": reasons,
-        }
-    )
+            reasons.append(f"passes every criterion, but the larger c = {recommended} passes too")
+    judged["reason"] = reasons
+    return judged
 
 
-def recommend_n_clusters(
-    table: pd.DataFrame, *, collapse_ratio: float = DEFAULT_COLLAPSE_RATIO
-) -> int:
-    """Recommend a number of clusters from a validity table.
-
-    The rule, applied to the rows sorted by c:
-
-    1. For each scanned c after the first, divide its minimum centroid distance by the value at
-       the previous scanned c. While every new cluster captures a real group, the closest pair
-       of centroids stays apart; once c exceeds the number of groups the data support, the new
-       centroid lands on top of an existing group (or coincides with another centroid) and the
-       distance falls sharply. Candidate steps are those whose ratio is below
-       ``collapse_ratio`` (default 0.5: the distance at least halves) and whose previous
-       distance is still at least :data:`UNCOLLAPSED_SHARE` (0.1) of the largest distance at
-       smaller c, so that steps among centroids that had already collapsed (tiny distances
-       whose ratios are noise) are never taken. The *collapse* is the candidate with the
-       smallest ratio (the sharpest fall; the first one on ties). Both numbers are gloam's
-       conventions (checked on scikit-learn blobs and on the demo data), not published
-       constants.
-    2. If there is a collapse, recommend the scanned c just before it: the largest number of
-       clusters whose centroids are all still well apart.
-    3. If the distance never collapses in the scanned range, recommend the c with the smallest
-       Xie–Beni index; equal values go to the smaller c and NaN never wins.
-       :func:`recommendation_reasons` then suggests scanning larger c.
-
-    The rule only reads ``n_clusters``, ``min_centroid_distance`` and ``xie_beni``; it is
-    deterministic and does not depend on the row order of ``table``. The use of the minimum
-    centroid distance follows Schwämmle and Jensen (2010); the Xie–Beni index follows Xie and
-    Beni (1991). Use :func:`recommendation_reasons` for a per-c explanation.
-
-    Parameters
-    ----------
-    table : pandas.DataFrame
-        Output of :func:`validity_table` (needs ``n_clusters``, ``xie_beni``,
-        ``min_centroid_distance``).
-    collapse_ratio : float, default 0.5
-        Ratio in (0, 1) below which a fall of the minimum centroid distance from one scanned c
-        to the next is a candidate collapse.
-
-    Returns
-    -------
-    int
-        The recommended number of clusters (one of ``table["n_clusters"]``).
-
-    Raises
-    ------
-    GloamError
-        If the table lacks the needed columns, is empty, repeats a c, or ``collapse_ratio`` is
-        outside (0, 1).
-
-    References
-    ----------
-    Schwämmle and Jensen (2010), Bioinformatics 26:2841; Xie and Beni (1991), IEEE TPAMI 13:841.
-    """
-    reasons = recommendation_reasons(table, collapse_ratio=collapse_ratio)
-    return int(reasons.loc[reasons["chosen"], "n_clusters"].iloc[0])
+def recommended_n_clusters(judged: pd.DataFrame) -> int:
+    """The largest c with ``passes`` True in a table from :func:`judge_n_clusters`, else 1."""
+    passing = judged.loc[judged["passes"].astype(bool), "n_clusters"]
+    return int(passing.max()) if len(passing) else 1

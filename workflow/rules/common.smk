@@ -280,7 +280,7 @@ def get_scan_files(wildcards):
     return [run_path(run["run"], f"scan/c{c}.npz") for c in cluster_numbers(run)]
 
 
-FIGURES = ("profiles", "validity", "fuzzifier", "centroid_correlation")
+FIGURES = ("profiles", "validity", "fuzzifier", "overview")
 
 
 def run_outputs(run):
@@ -299,6 +299,8 @@ def run_outputs(run):
             "fuzzifier_curve.tsv",
             "memberships.tsv",
             "centroids.tsv",
+            "clusters.tsv",
+            "robustness.tsv",
             "validity.tsv",
             "selection.json",
             "gloam.h5ad",
@@ -308,7 +310,7 @@ def run_outputs(run):
     files += [
         run_path(run, f"figures/{figure}.{suffix}")
         for figure in FIGURES
-        for suffix in ("png", "pdf")
+        for suffix in ("png", "pdf", "svg")
     ]
     return files
 
@@ -325,7 +327,7 @@ def get_summary_inputs(wildcards):
     return {
         "fuzzifier": [run_path(run, "fuzzifier.json") for run in RUNS],
         "selection": [run_path(run, "selection.json") for run in RUNS],
-        "memberships": [run_path(run, "memberships.tsv") for run in RUNS],
+        "consensus": [run_path(run, "consensus.npz") for run in RUNS],
     }
 
 
@@ -345,7 +347,17 @@ def get_preparation_params(wildcards):
 
 # The scan settings that change what one c's job computes. The range of c is left out, so
 # widening it runs only the new c and keeps the scans already made.
-START_SETTINGS = ("n_starts", "tol", "max_iter", "init", "precision")
+START_SETTINGS = (
+    "n_starts",
+    "tol",
+    "max_iter",
+    "init",
+    "precision",
+    "min_starts_at_optimum",
+    "max_starts",
+    "noise_class",
+    "n_resamples",
+)
 
 
 @job_function

@@ -24,6 +24,13 @@ rule export:
             category="{run}",
             subcategory="4 clusters",
         ),
+        clusters=report(
+            run_path("{run}", "clusters.tsv"),
+            caption="../report/clusters.rst",
+            category="{run}",
+            subcategory="4 clusters",
+        ),
+        robustness=run_path("{run}", "robustness.tsv"),
         h5ad=run_path("{run}", "gloam.h5ad"),
         validity_png=report(
             run_path("{run}", "figures/validity.png"),
@@ -32,6 +39,7 @@ rule export:
             subcategory="3 number of clusters",
         ),
         validity_pdf=run_path("{run}", "figures/validity.pdf"),
+        validity_svg=run_path("{run}", "figures/validity.svg"),
         fuzzifier_png=report(
             run_path("{run}", "figures/fuzzifier.png"),
             caption="../report/fuzzifier.rst",
@@ -39,13 +47,15 @@ rule export:
             subcategory="2 fuzzifier",
         ),
         fuzzifier_pdf=run_path("{run}", "figures/fuzzifier.pdf"),
-        correlation_png=report(
-            run_path("{run}", "figures/centroid_correlation.png"),
-            caption="../report/centroid_correlation.rst",
+        fuzzifier_svg=run_path("{run}", "figures/fuzzifier.svg"),
+        overview_png=report(
+            run_path("{run}", "figures/overview.png"),
+            caption="../report/overview.rst",
             category="{run}",
             subcategory="4 clusters",
         ),
-        correlation_pdf=run_path("{run}", "figures/centroid_correlation.pdf"),
+        overview_pdf=run_path("{run}", "figures/overview.pdf"),
+        overview_svg=run_path("{run}", "figures/overview.svg"),
     params:
         settings=get_run_settings,
     log:
@@ -67,8 +77,7 @@ rule export:
 rule core_genes:
     input:
         prepared=run_path("{run}", "prepared/prepared.h5ad"),
-        memberships=run_path("{run}", "memberships.tsv"),
-        centroids=run_path("{run}", "centroids.tsv"),
+        consensus=run_path("{run}", "consensus.npz"),
     output:
         genesets=report(
             directory(run_path("{run}", "genesets")),
@@ -84,6 +93,7 @@ rule core_genes:
             subcategory="4 clusters",
         ),
         profiles_pdf=run_path("{run}", "figures/profiles.pdf"),
+        profiles_svg=run_path("{run}", "figures/profiles.svg"),
     params:
         thresholds=config["genesets"]["thresholds"],
         time_unit=config["figures"]["time_unit"],

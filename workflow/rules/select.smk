@@ -1,10 +1,11 @@
-# Validity over c, the chosen c, and the consensus of the aligned starts for that c: one job
-# per run that reads the scan files once.
+# The structure test, the criteria for every scanned c, the chosen c, and the consensus for
+# that c: one job per run that reads the scan files once.
 
 
 rule select:
     input:
-        prepared=run_path("{run}", "prepared/prepared.h5ad"),
+        scan_input=run_path("{run}", "prepared/scan_input.npz"),
+        fuzzifier=run_path("{run}", "fuzzifier.json"),
         scans=get_scan_files,
     output:
         validity=report(
@@ -13,10 +14,16 @@ rule select:
             category="{run}",
             subcategory="3 number of clusters",
         ),
-        selection=run_path("{run}", "selection.json"),
+        selection=report(
+            run_path("{run}", "selection.json"),
+            caption="../report/selection.rst",
+            category="{run}",
+            subcategory="3 number of clusters",
+        ),
         consensus=run_path("{run}", "consensus.npz"),
     params:
         settings=get_selection_settings,
+        seed=config["seed"],
     log:
         "logs/{run}/select.log",
     benchmark:
