@@ -372,6 +372,18 @@ def _calibrate_null(
     return best
 
 
+def _null_fcis(
+    data: np.ndarray, m: float, n_null: int, n_starts: int, rng: np.random.Generator
+) -> np.ndarray:
+    """FCIs of ``n_null`` null data sets shaped like ``data``; shape (n_null,)."""
+    mean, root, _, _ = _calibrate_null(data, rng)
+    fcis = np.empty(n_null)
+    for index in range(n_null):
+        null = _zscored_gaussian(rng.standard_normal(data.shape), mean, root)
+        fcis[index] = _fci(null, m, n_starts, rng)
+    return fcis
+
+
 # --------------------------------------------------------------------------------------------
 # Public functions
 # --------------------------------------------------------------------------------------------
@@ -481,22 +493,11 @@ def structure_test(
     n_starts = _check_count("n_starts", n_starts, 1)
     generator = np.random.default_rng(rng)
 
-    mean, root, _, _ = _calibrate_null(data, generator)
     used = data
     if data.shape[0] > max_genes:
         used = data[np.sort(generator.choice(data.shape[0], size=max_genes, replace=False))]
     observed = _fci(used, m, n_starts, generator)
-    null = np.array(
-        [
-            _fci(
-                _zscored_gaussian(generator.standard_normal(used.shape), mean, root),
-                m,
-                n_starts,
-                generator,
-            )
-            for _ in range(n_null)
-        ]
-    )
+    null = _null_fcis(used, m, n_null, n_starts, generator)
     null_mean = float(null.mean())
     null_sd = float(null.std(ddof=1))
     z_score = (observed - null_mean) / max(null_sd, FCI_RESOLUTION)
