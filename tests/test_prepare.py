@@ -613,3 +613,48 @@ def test_read_prepared_rejects_foreign_or_missing_files(tmp_path):
     anndata.AnnData(np.zeros((2, 2))).write_h5ad(tmp_path / "other.h5ad")
     with pytest.raises(GloamError, match="not written by gloam's preparation step"):
         read_prepared(tmp_path / "other.h5ad")
+
+
+# ---------------------------------------------------------------- the default gene selection
+
+
+def _simulated(n_replicates: int, seed: int = 0):
+    from gloam.simulate import simulate_experiment
+
+    experiment = simulate_experiment(
+        n_genes=1500, flat_share=0.6, n_replicates=n_replicates, seed=seed
+    )
+    truth = experiment.truth.set_index("gene")["response"]
+    return experiment.matrix, experiment.samples, truth
+
+
+@pytest.mark.parametrize("seed", [0, 1])
+def test_default_selection_keeps_responses_and_drops_flat_genes(seed):
+    """Defaults (median-of-ratios, moderated F-test at FDR 0.05, two-fold range) on counts with
+    60 % flat genes: BH controls the share of flat genes among those kept (Benjamini &
+    Hochberg 1995), so at most 5 % of the flat genes may pass; most planted genes pass."""
+    counts, sheet, truth = _simulated(3, seed)
+    prepared = prepare_expression(counts, sheet, PrepareSettings())
+    assert prepared.settings.normalisation == "median_ratio"
+    assert prepared.selection_method == "moderated_f"
+    kept = truth.loc[prepared.zscores.index]
+    flat = truth == "flat"
+    assert (kept == "flat").sum() <= 0.05 * flat.sum()
+    assert (kept != "flat").sum() >= 0.9 * (~flat).sum()
+    report = prepared.gene_report.set_index("gene")
+    tested = report["status"].isin(["kept", "not_significant", "small_change"])
+    assert report.loc[tested, "response_fdr"].between(0, 1).all()
+    assert (report.loc[report["status"] == "kept", "response_fdr"] <= 0.05).all()
+    assert (report.loc[report["status"] == "kept", "log2_range"] >= 1.0).all()
+    # Replicates travel on for resampling: one column per sample, the kept genes as rows.
+    assert prepared.replicates.shape == (len(prepared.zscores), len(sheet))
+
+
+def test_without_replicates_the_variance_rule_is_used_and_said():
+    counts, sheet, truth = _simulated(1)
+    prepared = prepare_expression(counts, sheet, PrepareSettings())
+    assert prepared.selection_method == "no_replicates"
+    assert any("replicate" in note for note in prepared.selection_notes)
+    assert prepared.gene_report["response_p_value"].isna().all()
+    kept = truth.loc[prepared.zscores.index]
+    assert (kept != "flat").mean() > 0.5  # the rule enriches for responses

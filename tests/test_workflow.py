@@ -594,3 +594,37 @@ def test_gloam_run_drives_snakemake(finished, capsys):
         main(["run", "--snakefile", str(finished / "missing.smk")])
     assert exit_info.value.code == 2
     assert "not found" in capsys.readouterr().err
+
+
+# ------------------------------------------------------------------ default settings, no structure
+
+
+def test_structureless_data_with_default_settings_get_the_no_structure_verdict(tmp_path):
+    """Genes drawn from one Gaussian with smooth temporal covariance change over time but form
+    no clusters (gloam.simulate, kind "gaussian"). With every setting at its default (the config
+    names only the datasets), the run must say so: c = 1, flag no_structure, and no core sets."""
+    from gloam.simulate import simulate_experiment
+
+    directory = tmp_path / "run"
+    files = simulate_experiment(kind="gaussian", n_genes=800, flat_share=0.3, seed=2).write(
+        directory / "data"
+    )
+    (directory / "config.yaml").write_text(
+        yaml.safe_dump({"datasets": "datasets.tsv", "seed": 3}), encoding="utf-8"
+    )
+    (directory / "datasets.tsv").write_text(
+        f"name\tmatrix\tsamples\tvalue_type\ncloud\t{files['matrix']}\t{files['samples']}\tcounts\n",
+        encoding="utf-8",
+    )
+    snakemake(directory)
+    out = directory / "results" / "cloud"
+    selection = json.loads((out / "selection.json").read_text(encoding="utf-8"))
+    assert selection["structure"]["present"] is False
+    assert selection["recommended"] == 1 and selection["n_clusters"] == 1
+    assert "no_structure" in selection["flags"]
+    summary = pd.read_csv(directory / "results" / "summary.tsv", sep="\t")
+    assert "no_structure" in summary.loc[0, "flags"]
+    gmt = (out / "genesets" / "cloud_core0.7.gmt").read_text(encoding="utf-8")
+    assert gmt.strip() == ""
+    log = (directory / "logs" / "cloud" / "select.log").read_text(encoding="utf-8")
+    assert "quality flag no_structure" in log

@@ -385,7 +385,12 @@ def _run_cluster(args: argparse.Namespace) -> int:
         out / "fuzzifier_curve.tsv",
         out / "selection.json",
         out / "validity.tsv",
-        {"seed": args.seed, "fuzzifier": {"m": m}, "scan": scan_settings},
+        {
+            "seed": args.seed,
+            "time_unit": args.time_unit,
+            "fuzzifier": {"m": m},
+            "scan": scan_settings,
+        },
         memberships=out / "memberships.tsv",
         centroids=out / "centroids.tsv",
         clusters=out / "clusters.tsv",

@@ -1170,14 +1170,29 @@ def figure_fuzzifier(fuzzifier_json: PathLike, curve_tsv: PathLike, paths: Figur
     save_figure(figure, *paths)
 
 
-def figure_overview(consensus_npz: PathLike, paths: FigurePaths) -> None:
-    """Cluster overview: sizes, robustness, peak time and similarity."""
+def figure_overview(
+    consensus_npz: PathLike,
+    selection_json: PathLike,
+    time_unit: str,
+    paths: FigurePaths,
+) -> None:
+    """Cluster overview: shape, sizes, robustness, peak time and similarity."""
+    from gloam.partition import CORE_LEVEL_FOR_CRITERIA
     from gloam.plots import plot_cluster_overview, save_figure
 
     consensus = read_consensus(consensus_npz)
-    table = cluster_frame(consensus)
+    criteria = _read_json(selection_json, "selection").get("criteria", {})
+    conditions = consensus["conditions"].astype(str).tolist()
     figure = plot_cluster_overview(
-        table, consensus["centroids"], cluster_labels=consensus["cluster_names"].tolist()
+        cluster_frame(consensus),
+        consensus["centroids"],
+        cluster_labels=consensus["cluster_names"].tolist(),
+        times=consensus["times"],
+        conditions=conditions if len(set(conditions)) > 1 else None,
+        time_unit=time_unit,
+        core_threshold=CORE_LEVEL_FOR_CRITERIA,
+        stable_jaccard=float(criteria.get("stable_jaccard", 0.75)),
+        max_corr=float(criteria.get("max_centroid_correlation", 0.9)),
     )
     save_figure(figure, *paths)
 
@@ -1218,7 +1233,9 @@ def export_results(
     export_h5ad(prepared, consensus_npz, fuzzifier_json, selection_json, settings, h5ad)
     figure_validity(validity_tsv, selection_json, validity_figure)
     figure_fuzzifier(fuzzifier_json, fuzzifier_curve, fuzzifier_figure)
-    figure_overview(consensus_npz, overview_figure)
+    figure_overview(
+        consensus_npz, selection_json, str(settings.get("time_unit", "h")), overview_figure
+    )
 
 
 def export_core_genes(

@@ -386,6 +386,7 @@ def get_run_settings(wildcards):
         "condition": run["condition"],
         "variant": run["variant"],
         "seed": config["seed"],
+        "time_unit": config["figures"]["time_unit"],
         **{section: run[section] for section in SETTING_SECTIONS},
     }
 
