@@ -1280,7 +1280,7 @@ def plot_validity(
     *,
     stable_jaccard: float = 0.75,
     min_core_size: int = 10,
-    max_corr: float = 0.9,
+    max_corr: float = 0.85,
     width: Width = "single",
 ) -> Figure:
     """The criteria that decide the number of clusters c, for every scanned c.

@@ -310,6 +310,11 @@ def _structure_index_at(curve: pd.DataFrame, m: float) -> float:
     return float(np.interp(m, ordered["m"].to_numpy(), ordered["structure_index"].to_numpy()))
 
 
+#: Shuffled-data structure index at the m used from which ``fuzzifier_check_failed`` is
+#: raised: twice :data:`gloam.fuzzifier.STRUCTURELESS_INDEX` (gloam's convention).
+FUZZIFIER_FLAG_INDEX = 0.1
+
+
 def write_fuzzifier_choice(
     zscores: pd.DataFrame,
     settings: Mapping[str, Any],
@@ -324,7 +329,7 @@ def write_fuzzifier_choice(
     ``n_clusters_check``. The curve TSV has the columns of
     :data:`gloam.fuzzifier.CURVE_COLUMNS`. The JSON also records ``check_structure_index``
     (the shuffled-data structure index at the m used) and ``check_passed`` (below
-    :data:`gloam.fuzzifier.STRUCTURELESS_INDEX`); a failed check raises the quality flag
+    :data:`FUZZIFIER_FLAG_INDEX`); a failed check raises the quality flag
     ``fuzzifier_check_failed``.
 
     Fewer than 3 genes are refused before anything is written
@@ -343,12 +348,15 @@ def write_fuzzifier_choice(
         rng=np.random.default_rng([int(seed), 0]),
     )
     index = _structure_index_at(choice.curve, choice.m)
-    passed = bool(index < STRUCTURELESS_INDEX)
+    # Flag only a clear failure: the index at m near the formula's estimate falls steeply, and
+    # values just above STRUCTURELESS_INDEX (0.05-0.09) were seen on most well-clustered
+    # simulated sets of the recovery benchmark, where the flag would say nothing.
+    passed = bool(index < FUZZIFIER_FLAG_INDEX)
     if not passed:
         raise_flag(
             "fuzzifier_check_failed",
-            f"structure index {index:.3f} of shuffled data at m = {choice.m:.3f} (structureless "
-            f"below {STRUCTURELESS_INDEX})",
+            f"structure index {index:.3f} of shuffled data at m = {choice.m:.3f} (flagged from "
+            f"{FUZZIFIER_FLAG_INDEX}; structureless below {STRUCTURELESS_INDEX})",
         )
     write_table(choice.curve, out_curve)
     _write_json(
@@ -604,10 +612,10 @@ _SELECTION_DEFAULTS = {
     "n_clusters": "auto",
     "stable_jaccard": 0.75,
     "min_core_genes": 10,
-    "max_centroid_correlation": 0.9,
-    "min_coherence": 0.3,
+    "max_centroid_correlation": 0.85,
+    "min_coherence": 0.5,
     "structure_alpha": 0.01,
-    "structure_n_null": 50,
+    "structure_n_null": 30,
 }
 #: Share of noise genes above which the run is flagged ``mostly_noise``.
 MOSTLY_NOISE_SHARE = 0.5

@@ -6,7 +6,14 @@ Liu, Hayes, Nobel & Marron (2008), adapted in two ways:
 
 * **Statistic.**  SigClust uses the 2-means cluster index, the within-cluster sum of squares of
   the best 2-means split over the total sum of squares.  gloam clusters with fuzzy c-means, so
-  the statistic is the *fuzzy cluster index* at c = 2,
+  the statistic is the *fuzzy cluster index*, and it is compared with the null at each c of a
+  fixed set (:data:`DEFAULT_TEST_CLUSTERS`, 2 to 6), the smallest p-value Bonferroni-corrected
+  for the number of c.  The index at c = 2 alone missed planted structure (see "Behaviour"
+  below: several groups around the mean, or many structureless genes mixed in, leave the best
+  2-split no better than a Gaussian's), while the index at c near the number of groups sees
+  it; on the recovery benchmark's simulated sets (5 planted responses, half of the genes
+  flat) the z-score went from -0.3 to -1.7 at c = 2 to -27 to -31 with c up to 6, and two
+  smooth Gaussian sets stayed at -0.5 and +0.2.  At c = 2,
 
   .. math::
 
@@ -83,9 +90,11 @@ Behaviour (measured, 10 time points)
   same covariance; z-scored noise genes, near 0 on the leading axis, even make the data
   look *less* split than the null.  The index at c = 2 cannot see this structure.
 * A continuous rhythm with uniformly spread phase and no noise is exactly the null (an
-  isotropic Gaussian in the rhythm plane, z-scored); with small noise it is rejected
-  because every gene has the same amplitude, although it has no discrete clusters.  The
-  test rejects "one z-scored Gaussian", not "one cluster".
+  isotropic Gaussian in the rhythm plane, z-scored).  The test rejects "one z-scored
+  Gaussian", not "one cluster": a continuum far from Gaussian can be called structured.
+* The power figures above are for c = 2 alone, measured before the index at c = 3 to 6 was
+  added; the set of c makes the test more powerful, the Bonferroni correction (x 5) slightly
+  more conservative.
 
 References
 ----------
@@ -111,6 +120,7 @@ from gloam.fcm import fuzzy_cmeans
 from gloam.prepare import ZSCORE_DDOF, zscore_rows
 
 __all__ = [
+    "DEFAULT_TEST_CLUSTERS",
     "StructureTest",
     "structure_test",
     "fuzzy_cluster_index",
@@ -171,6 +181,8 @@ class StructureTest:
         Significance level.
     present : bool
         ``p_value < alpha``: the genes show more cluster structure than one Gaussian.
+    n_clusters : int
+        The c whose index gave the smallest p-value (the statistic and z-score are at it).
     """
 
     statistic: float
@@ -184,6 +196,7 @@ class StructureTest:
     m: float
     alpha: float
     present: bool
+    n_clusters: int = 2
 
     def to_dict(self) -> dict[str, float | int | bool]:
         """The fields as plain Python floats, ints and bools (JSON-safe)."""
@@ -201,6 +214,10 @@ class StructureTest:
 # --------------------------------------------------------------------------------------------
 # Validation (one place; each message names the parameter, the value and the allowed range)
 # --------------------------------------------------------------------------------------------
+
+
+#: Numbers of clusters at which the fuzzy cluster index is compared with the null.
+DEFAULT_TEST_CLUSTERS = (2, 3, 4, 5, 6)
 
 
 def _is_integer(value: object) -> bool:
@@ -279,8 +296,8 @@ def _check_alpha(alpha: float) -> float:
 # --------------------------------------------------------------------------------------------
 
 
-def _fci(X: np.ndarray, m: float, n_starts: int, rng: np.random.Generator) -> float:
-    """FCI at c = 2 of validated data: best of ``n_starts`` fits, capped at ``2^(1-m)``."""
+def _fci(X: np.ndarray, m: float, n_starts: int, rng: np.random.Generator, c: int = 2) -> float:
+    """FCI at ``c`` of validated data: best of ``n_starts`` fits, capped at ``c^(1-m)``."""
     centred = X - X.mean(axis=0)
     total = float(np.einsum("ij,ij->", centred, centred))
     with warnings.catch_warnings():
@@ -289,7 +306,7 @@ def _fci(X: np.ndarray, m: float, n_starts: int, rng: np.random.Generator) -> fl
         warnings.simplefilter("ignore", ConvergenceWarning)
         result = fuzzy_cmeans(
             X,
-            2,
+            c,
             m,
             n_starts=n_starts,
             tol=_TOL,
@@ -297,8 +314,8 @@ def _fci(X: np.ndarray, m: float, n_starts: int, rng: np.random.Generator) -> fl
             init="kmeans++",
             rng=rng,
         )
-    # Both centroids at the mean is always a solution: its objective is 2^(1-m) J_1.
-    return min(float(result.objectives[result.best_index]) / total, 2.0 ** (1.0 - m))
+    # Every centroid at the mean is always a solution: its objective is c^(1-m) J_1.
+    return min(float(result.objectives[result.best_index]) / total, float(c) ** (1.0 - m))
 
 
 def _moments(Z: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -373,14 +390,20 @@ def _calibrate_null(
 
 
 def _null_fcis(
-    data: np.ndarray, m: float, n_null: int, n_starts: int, rng: np.random.Generator
+    data: np.ndarray,
+    m: float,
+    n_null: int,
+    n_starts: int,
+    rng: np.random.Generator,
+    cs: tuple[int, ...] = (2,),
 ) -> np.ndarray:
-    """FCIs of ``n_null`` null data sets shaped like ``data``; shape (n_null,)."""
+    """FCIs of ``n_null`` null data sets shaped like ``data`` at each c; (n_null, len(cs))."""
     mean, root, _, _ = _calibrate_null(data, rng)
-    fcis = np.empty(n_null)
+    fcis = np.empty((n_null, len(cs)))
     for index in range(n_null):
         null = _zscored_gaussian(rng.standard_normal(data.shape), mean, root)
-        fcis[index] = _fci(null, m, n_starts, rng)
+        for j, c in enumerate(cs):
+            fcis[index, j] = _fci(null, m, n_starts, rng, c)
     return fcis
 
 
@@ -442,6 +465,7 @@ def structure_test(
     alpha: float = 0.01,
     max_genes: int = 4000,
     n_starts: int = 3,
+    n_clusters: tuple[int, ...] = DEFAULT_TEST_CLUSTERS,
     rng: int | np.random.Generator | None = None,
 ) -> StructureTest:
     """Test whether z-scored profiles show more cluster structure than one Gaussian.
@@ -467,6 +491,14 @@ def structure_test(
         sets have the same number of rows.  The null's moments use every gene.
     n_starts : int, default 3
         Fuzzy c-means starts per fit.
+    n_clusters : tuple of int, default (2, 3, 4, 5, 6)
+        The numbers of clusters at which the index is compared with the null. The index at
+        c = 2 alone misses data with several groups arranged around the mean (measured: z
+        between -0.3 and -1.7 on three of five simulated sets with 5 planted responses),
+        while the index at c near the number of groups sees them. The reported statistic,
+        z-score and p-values are those of the c with the smallest p-value; the p-value is
+        Bonferroni-corrected for the number of c compared (a fixed set, so the verdict does
+        not depend on the scanned range). Values not below the number of genes are skipped.
     rng : int, numpy.random.Generator or None
         Seed or generator; the only source of randomness.
 
@@ -496,20 +528,28 @@ def structure_test(
     used = data
     if data.shape[0] > max_genes:
         used = data[np.sort(generator.choice(data.shape[0], size=max_genes, replace=False))]
-    observed = _fci(used, m, n_starts, generator)
-    null = _null_fcis(used, m, n_null, n_starts, generator)
-    null_mean = float(null.mean())
-    null_sd = float(null.std(ddof=1))
-    z_score = (observed - null_mean) / max(null_sd, FCI_RESOLUTION)
-    p_value = float(ndtr(z_score))
-    p_empirical = (1 + int(np.count_nonzero(null <= observed + FCI_RESOLUTION))) / (1 + n_null)
+    cs = tuple(int(c) for c in n_clusters if 2 <= int(c) < used.shape[0])
+    if not cs:
+        raise GloamError(
+            f"the structure test needs a number of clusters between 2 and the number of genes "
+            f"({used.shape[0]}); got {tuple(n_clusters)}"
+        )
+    observed = np.array([_fci(used, m, n_starts, generator, c) for c in cs])
+    null = _null_fcis(used, m, n_null, n_starts, generator, cs)
+    null_means = null.mean(axis=0)
+    null_sds = null.std(axis=0, ddof=1)
+    z_scores = (observed - null_means) / np.maximum(null_sds, FCI_RESOLUTION)
+    best = int(np.argmin(z_scores))
+    p_value = float(min(1.0, ndtr(z_scores[best]) * len(cs)))
+    empirical = (1 + np.count_nonzero(null <= observed + FCI_RESOLUTION, axis=0)) / (1 + n_null)
     return StructureTest(
-        statistic=observed,
-        null_mean=null_mean,
-        null_sd=null_sd,
-        z_score=float(z_score),
+        statistic=float(observed[best]),
+        null_mean=float(null_means[best]),
+        null_sd=float(null_sds[best]),
+        z_score=float(z_scores[best]),
         p_value=p_value,
-        p_value_empirical=float(p_empirical),
+        p_value_empirical=float(min(1.0, empirical[best] * len(cs))),
+        n_clusters=int(cs[best]),
         n_null=n_null,
         n_genes_used=int(used.shape[0]),
         m=m,

@@ -81,11 +81,11 @@ STABLE_JACCARD = 0.75
 MIN_CORE_GENES = 10
 #: Largest Pearson correlation two centroids may have and still count as distinct responses
 #: (gloam's convention).
-MAX_CENTROID_CORRELATION = 0.9
+MAX_CENTROID_CORRELATION = 0.85
 #: Smallest coherence (mean correlation between a cluster's gene profiles, measured as the
 #: squared centroid norm; :func:`gloam.partition.centroid_coherence`) of a cluster that is a
 #: shared response rather than genes gathered near the flat profile (gloam's convention).
-MIN_COHERENCE = 0.3
+MIN_COHERENCE = 0.5
 
 
 def _as_memberships(U: np.ndarray) -> np.ndarray:
