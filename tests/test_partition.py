@@ -20,8 +20,9 @@ from gloam.consensus import starts_at_optimum
 from gloam.errors import ConvergenceWarning
 from gloam.fcm import fuzzy_cmeans
 from gloam.genesets import core_genes
-from gloam.partition import solve_partition, zscore_profiles
+from gloam.partition import solve_partition
 from gloam.prepare import summarise_replicates
+from gloam.robustness import zscore_rows
 from gloam.simulate import simulate_experiment
 
 
@@ -41,7 +42,7 @@ def _planted(seed: int, n_genes: int = 600, flat_share: float = 0.0):
     values = experiment.matrix.to_numpy(dtype=float)
     profiles = summarise_replicates(values, group, len(times), "mean")
     truth = experiment.truth.set_index("gene").loc[experiment.matrix.index, "response"]
-    return values, group, zscore_profiles(profiles), truth.to_numpy()
+    return values, group, zscore_rows(profiles), truth.to_numpy()
 
 
 @pytest.mark.parametrize("seed", [0, 1, 2])

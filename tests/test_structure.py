@@ -227,9 +227,14 @@ def test_rejection_rate_under_the_smooth_gaussian_null_is_low():
     writing: 0 of 100 at m = 1.5 and 0 of 100 at m = 2; the test is conservative, the
     observed z-scores having SD about 0.3 instead of 1 (the null's covariance is estimated
     from the data themselves)."""
-    results = [structure_test(_smooth_gaussian(1000, seed=500 + s), 1.5, rng=s) for s in range(20)]
+    results = [
+        structure_test(_smooth_gaussian(600, seed=500 + s), 1.5, n_null=20, rng=s)
+        for s in range(12)
+    ]
     rejections = sum(r.p_value < 0.01 for r in results)
-    assert rejections <= 2
+    # 12 data sets (kept small: every test compares five c); at a true level of 0.01, two or
+    # more rejections happen with probability 0.006 (binomial).
+    assert rejections <= 1
     assert np.mean([r.z_score for r in results]) > -1.0
 
 

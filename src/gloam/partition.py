@@ -41,7 +41,6 @@ __all__ = [
     "CORE_LEVEL_FOR_CRITERIA",
     "PartitionAtC",
     "solve_partition",
-    "zscore_profiles",
     "centroid_correlation",
     "centroid_coherence",
 ]
@@ -95,22 +94,6 @@ class PartitionAtC:
     top_agreement: np.ndarray | None
     jaccard: np.ndarray | None
     metrics: dict[str, Any]
-
-
-def zscore_profiles(profiles: np.ndarray) -> np.ndarray:
-    """z-score each row (mean 0, SD 1 with ddof = 1); a constant row becomes all zeros.
-
-    Parameters
-    ----------
-    profiles : ndarray of shape (n_genes, n_columns)
-
-    Returns
-    -------
-    ndarray of shape (n_genes, n_columns)
-    """
-    centred = profiles - profiles.mean(axis=1, keepdims=True)
-    sd = centred.std(axis=1, ddof=1, keepdims=True)
-    return np.divide(centred, sd, out=np.zeros_like(centred), where=sd > 0)
 
 
 def centroid_correlation(centroids: np.ndarray) -> np.ndarray:
@@ -432,6 +415,7 @@ def _robustness(
         bootstrap_genes,
         resample_replicates,
         resampling_robustness,
+        zscore_rows,
     )
 
     has_replicates = (
@@ -444,9 +428,7 @@ def _robustness(
 
         def recluster(generator: np.random.Generator):
             profiles = resample_replicates(replicates, group, rng=generator)
-            resampled, resampled_noise, _ = _recluster(
-                zscore_profiles(profiles), centroids, m, delta
-            )
+            resampled, resampled_noise, _ = _recluster(zscore_rows(profiles), centroids, m, delta)
             return None, resampled, resampled_noise
 
         scheme = "replicates"
