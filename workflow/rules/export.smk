@@ -78,6 +78,9 @@ rule core_genes:
     input:
         prepared=run_path("{run}", "prepared/prepared.h5ad"),
         consensus=run_path("{run}", "consensus.npz"),
+        # Not read: it orders core_genes after export, so the group "finish" is one connected
+        # pair and a cluster gets one submission per run for both.
+        memberships=run_path("{run}", "memberships.tsv"),
     output:
         genesets=report(
             directory(run_path("{run}", "genesets")),
