@@ -73,19 +73,15 @@ the (subsampled) data, so the statistic sees the same sample size under the null
 
 Behaviour (measured, 10 time points)
 -------------------------------------
-* Level: conservative.  Over 440 structureless data sets (smooth Gaussians and z-scored
-  noise, m = 1.2 to 2, 1,000 to 4,000 genes) none was called structured at alpha = 0.01
-  or 0.05; the z-scores had SD 0.3 to 0.5 instead of 1, because the null's moments are
-  estimated from the data themselves, so the observed index is compared with null data
-  sets that vary more than it does.
-* Power (1,000 genes): 4 distinct response shapes with noise SD 0.3 to 0.75 per time point
-  (shapes of SD 1), or 5 shapes with noise SD 0.3, gave z = -3.3 to -12.7 at m = 1.3 and
-  1.5; 5 shapes with noise SD 0.5 gave only -2.4 to -2.9 at m = 1.5.  Power falls as m
-  grows (fuzziness pulls data and null alike towards 2^(1-m); at m = 2 noise SD 0.75 gave
-  z = -0.6) and as shapes multiply (a set of 6 shapes gave -1.2 to -3.1).
+* Level: conservative.  With the index at c = 2, 0 of 110 structureless data sets (smooth
+  Gaussians at m = 1.3 to 2, z-scored noise at m = 1.2; 1,000 to 4,000 genes) were called
+  structured at alpha = 0.01 or 0.05; the z-scores had SD 0.18 to 0.45 instead of 1,
+  because the null's moments are estimated from the data themselves.
+* Power at c = 2 (2,000 genes): 4 shapes with noise SD 0.2 to 0.3 gave z = -4.8 to -8.1;
+  5 shapes with noise SD 0.2 gave -3.4 to -5.6 (m = 1.3 and 1.5).
 * Structureless genes mixed in remove the power quickly: detected with 10 % of the genes
-  structureless (z = -2.8 to -10.5), borderline with 20 to 30 %, never with 50 % (z = +2.3
-  to -2.0, 1,000 and 2,000 genes alike).  The structureless genes fill the space around
+  structureless (z = -2.8 to -4.4), never with 50 % (z = -0.5 to -1.1) at c = 2; the index
+  at c = 3 to 6 detects that mixture.  The structureless genes fill the space around
   the clusters, so the best 2-split gains little more than it would on a Gaussian of the
   same covariance; z-scored noise genes, near 0 on the leading axis, even make the data
   look *less* split than the null.  The index at c = 2 cannot see this structure.
