@@ -324,7 +324,7 @@ def test_slurm_results_equal_a_local_run_with_the_same_seed(slurm_run, local_run
         np.testing.assert_allclose(
             on_slurm[numeric].to_numpy(), local[numeric].to_numpy(), rtol=0, atol=1e-9
         )
-        assert (on_slurm["top_cluster"] == local["top_cluster"]).all()
+        assert (on_slurm["top_class"] == local["top_class"]).all()
     summary_slurm = pd.read_csv(slurm_run.directory / "results" / "summary.tsv", sep="\t")
     summary_local = pd.read_csv(local_run / "results" / "summary.tsv", sep="\t")
     pd.testing.assert_frame_equal(summary_slurm, summary_local)
