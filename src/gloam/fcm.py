@@ -193,15 +193,21 @@ class MultiStartResult:
 # --------------------------------------------------------------------------------------------
 
 
-def _check_data(X: np.ndarray) -> np.ndarray:
+def _check_data(X: np.ndarray, min_rows: int = 3) -> np.ndarray:
+    """``X`` as a contiguous float64 (n_genes, n_columns) array, or one GloamError line.
+
+    ``min_rows`` is 3 for fuzzy c-means (c >= 2 needs more genes); noise clustering, which
+    also allows c = 1, asks for 1.
+    """
     array = np.asarray(X)
     if array.ndim != 2:
         raise GloamError(
             f"X must be a 2-D array of shape (n_genes, n_timepoints); got {array.ndim} dimension(s)"
         )
-    if array.shape[0] < 3 or array.shape[1] < 1:
+    if array.shape[0] < min_rows or array.shape[1] < 1:
         raise GloamError(
-            f"X has shape {array.shape}; fuzzy c-means needs at least 3 rows (genes) and 1 column"
+            f"X has shape {array.shape}; clustering needs at least {min_rows} row(s) (genes) "
+            "and 1 column"
         )
     if not np.issubdtype(array.dtype, np.number):
         raise GloamError(f"X must be numeric; got dtype {array.dtype}")

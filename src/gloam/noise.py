@@ -44,6 +44,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from gloam.errors import ConvergenceWarning, GloamError
+from gloam.fcm import _check_data as check_engine_data
 from gloam.fcm import squared_distances
 
 __all__ = [
@@ -106,22 +107,8 @@ class NoisePartition:
 
 
 def _check_data(X: np.ndarray) -> np.ndarray:
-    array = np.asarray(X)
-    if array.ndim != 2 or array.shape[0] < 1 or array.shape[1] < 1:
-        raise GloamError(
-            f"X must be a 2-D array of shape (n_genes, n_timepoints) with at least one gene "
-            f"and one column; got shape {array.shape}"
-        )
-    if not np.issubdtype(array.dtype, np.number):
-        raise GloamError(f"X must be numeric; got dtype {array.dtype}")
-    array = np.ascontiguousarray(array, dtype=np.float64)
-    if not np.isfinite(array).all():
-        bad_rows = np.flatnonzero(~np.isfinite(array).all(axis=1))
-        raise GloamError(
-            f"X contains NaN or Inf in {bad_rows.size} row(s) (first: row {bad_rows[0]}); "
-            "fill or drop missing values before clustering"
-        )
-    return array
+    # The engine's own check of the data (one place for its messages), one gene allowed.
+    return check_engine_data(X, min_rows=1)
 
 
 def _check_centroids(centroids: np.ndarray, n_columns: int) -> np.ndarray:

@@ -232,6 +232,20 @@ def _check_groups(group_of_sample: object, n_groups: int) -> np.ndarray:
     return groups.astype(np.int64)
 
 
+def _condition_and_time_labels(
+    condition_of_group: np.ndarray, time_of_group: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
+    """Checked condition and time labels of the groups, one of each per group."""
+    conditions = _group_labels(condition_of_group, "condition_of_group")
+    times = _group_labels(time_of_group, "time_of_group")
+    if times.size != conditions.size:
+        raise GloamError(
+            f"time_of_group has {times.size} entries but condition_of_group has "
+            f"{conditions.size}; give one condition and one time per group"
+        )
+    return conditions, times
+
+
 def _group_labels(labels: object, name: str) -> np.ndarray:
     array = np.asarray(labels, dtype=object)
     if array.ndim != 1 or array.size == 0:
@@ -312,13 +326,7 @@ def interaction_designs(
         Fewer than two conditions, a repeated (condition, time) group, or conditions that do
         not share every time point.
     """
-    conditions = _group_labels(condition_of_group, "condition_of_group")
-    times = _group_labels(time_of_group, "time_of_group")
-    if times.size != conditions.size:
-        raise GloamError(
-            f"time_of_group has {times.size} entries but condition_of_group has "
-            f"{conditions.size}; give one condition and one time per group"
-        )
+    conditions, times = _condition_and_time_labels(condition_of_group, time_of_group)
     groups = _check_groups(group_of_sample, conditions.size)
     condition_codes, condition_names = pd.factorize(pd.Series(conditions))
     time_codes, time_values = pd.factorize(pd.Series(times), sort=True)
@@ -747,13 +755,7 @@ def _check_selection_inputs(
     if gene_index.has_duplicates:
         repeated = gene_index[gene_index.duplicated()].unique()[:3].tolist()
         raise GloamError(f"gene names must be unique; repeated: {repeated}")
-    conditions = _group_labels(condition_of_group, "condition_of_group")
-    times = _group_labels(time_of_group, "time_of_group")
-    if times.size != conditions.size:
-        raise GloamError(
-            f"time_of_group has {times.size} entries but condition_of_group has "
-            f"{conditions.size}; give one condition and one time per group"
-        )
+    conditions, times = _condition_and_time_labels(condition_of_group, time_of_group)
     groups = np.asarray(group_of_sample)
     if groups.shape != (n_samples,):
         raise GloamError(
