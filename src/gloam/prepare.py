@@ -82,6 +82,19 @@ DROP_REASONS = (
 )
 KEPT = "kept"
 
+#: Genes with a first-pass response FDR below this are left out of the re-estimated
+#: median-of-ratios size factors (DEG elimination, Kadota et al. 2012, who remove genes found
+#: changing at FDR 0.1; the level is from memory of their default).
+DEGES_FDR = 0.1
+#: Fewest genes, positive in every sample, the factors are re-estimated from: when fewer pass
+#: the FDR rule, the genes with the largest p-values make up the number (common practice: a
+#: median over fewer genes is itself noisy).
+DEGES_MIN_GENES = 100
+#: Most preparation passes (the first, then re-estimates until the reference genes repeat).
+DEGES_MAX_PASSES = 5
+#: The reference has settled when fewer than this share of all genes left or joined it.
+DEGES_SETTLED_SHARE = 0.01
+
 #: Condition name used when the sample sheet has no ``condition`` column.
 DEFAULT_CONDITION = "all"
 
@@ -400,7 +413,9 @@ def counts_per_million(counts: np.ndarray) -> np.ndarray:
     return counts / library_sizes * 1e6
 
 
-def median_of_ratios_size_factors(counts: np.ndarray) -> np.ndarray:
+def median_of_ratios_size_factors(
+    counts: np.ndarray, reference_genes: np.ndarray | None = None
+) -> np.ndarray:
     """Median-of-ratios size factors of each sample.
 
     ``s_j = median_g ( k_gj / (prod_i k_gi)^(1/m) )`` over the genes with a positive count
@@ -411,6 +426,10 @@ def median_of_ratios_size_factors(counts: np.ndarray) -> np.ndarray:
     ----------
     counts : ndarray of shape (n_genes, n_samples)
         Non-negative counts.
+    reference_genes : bool ndarray of shape (n_genes,), optional
+        Take the median over these genes only (for example the genes a first pass did not
+        find changing: the DEG-elimination strategy of Kadota et al. 2012).  All genes by
+        default.
 
     Returns
     -------
@@ -426,8 +445,12 @@ def median_of_ratios_size_factors(counts: np.ndarray) -> np.ndarray:
     ----------
     .. [1] Anders S, Huber W (2010). Differential expression analysis for sequence count
        data. Genome Biology 11:R106, equation (5).
+    .. [2] Kadota K, Nishiyama T, Shimizu K (2012). A normalization strategy for comparing
+       tag count data. Algorithms for Molecular Biology 7:5.
     """
     usable = np.all(counts > 0, axis=1)
+    if reference_genes is not None:
+        usable &= np.asarray(reference_genes, dtype=bool)
     if not usable.any():
         raise GloamError(
             "median-of-ratios normalisation needs at least one gene with a positive count in "
@@ -795,7 +818,12 @@ def _no_gene_left_error(summary: pd.DataFrame) -> GloamError:
 
 
 def prepare_expression(
-    matrix: pd.DataFrame, sheet: pd.DataFrame, settings: PrepareSettings | None = None
+    matrix: pd.DataFrame,
+    sheet: pd.DataFrame,
+    settings: PrepareSettings | None = None,
+    *,
+    _reference_genes: np.ndarray | None = None,
+    _pass: int = 1,
 ) -> PreparedData:
     """Validate, normalise, fill, filter, summarise and standardise an expression matrix.
 
@@ -873,7 +901,7 @@ def prepare_expression(
         if settings.normalisation == "cpm":
             scaled = cpm
         elif settings.normalisation == "median_ratio":
-            size_factors = median_of_ratios_size_factors(values_all)
+            size_factors = median_of_ratios_size_factors(values_all, _reference_genes)
             scaled = values_all / size_factors
             used["size_factor"] = size_factors[used_positions]
         else:
@@ -983,6 +1011,34 @@ def prepare_expression(
             **response_columns,
         }
     )
+    if (
+        settings.value_type == "counts"
+        and settings.normalisation == "median_ratio"
+        and selection_method != "none"
+    ):
+        # DEG elimination (Kadota et al. 2012): median-of-ratios assumes that most genes do
+        # not change; when many change in one direction at a time point, the median moves
+        # with them and unchanged genes get a shared false "profile".  Estimate the factors
+        # again from the genes this pass did not find changing, and prepare again, until that
+        # set settles.
+        reference = _unchanged_reference(
+            response_columns["response_fdr"],
+            response_columns["response_p_value"],
+            np.all(values_all > 0, axis=1),
+        )
+        previous = np.ones(n_genes, dtype=bool) if _reference_genes is None else _reference_genes
+        moved = np.count_nonzero(reference != previous)
+        if _pass < DEGES_MAX_PASSES and moved > DEGES_SETTLED_SHARE * n_genes:
+            return prepare_expression(
+                matrix, sheet, settings, _reference_genes=reference, _pass=_pass + 1
+            )
+        if _pass > 1:
+            selection_notes = (
+                *selection_notes,
+                f"size factors re-estimated {_pass - 1} time(s) from the "
+                f"{int(np.count_nonzero(previous))} genes the previous pass did not find "
+                f"changing (FDR >= {DEGES_FDR}; Kadota et al. 2012)",
+            )
     return PreparedData(
         zscores=pd.DataFrame(zscores, index=kept_genes, columns=columns.index),
         columns=columns,
@@ -998,6 +1054,22 @@ def prepare_expression(
         selection_method=selection_method,
         selection_notes=tuple(selection_notes),
     )
+
+
+def _unchanged_reference(
+    fdr: np.ndarray, p_value: np.ndarray, expressed_everywhere: np.ndarray
+) -> np.ndarray:
+    """Genes to take size factors from: not found changing (FDR >= ``DEGES_FDR`` or untested).
+
+    When fewer than ``DEGES_MIN_GENES`` of them are positive in every sample, the usable genes
+    with the largest p-values are added until there are that many (or all usable genes).
+    """
+    reference = ~(fdr < DEGES_FDR)
+    usable = np.flatnonzero(expressed_everywhere)
+    if np.count_nonzero(reference[usable]) < DEGES_MIN_GENES:
+        least_changing = usable[np.argsort(-np.nan_to_num(p_value[usable], nan=1.0), kind="stable")]
+        reference[least_changing[:DEGES_MIN_GENES]] = True
+    return reference
 
 
 def _largest_condition_range(profiles: np.ndarray, condition_of_column: np.ndarray) -> np.ndarray:
