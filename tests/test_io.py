@@ -1,4 +1,4 @@
-"""Readers of gloam.io: matrices and sample sheets.
+"""Readers and writers of gloam.io: matrices, sample sheets, intermediates, atomic writes.
 
 Every expected value below is the value written into the small file built in the test
 itself (the outside source is the file's own text), unless a check names another source.
@@ -7,7 +7,13 @@ itself (the outside source is the file's own text), unless a check names another
 from __future__ import annotations
 
 import gzip
+import os
+import shutil
+import subprocess
+import sys
+import time
 import warnings
+import zipfile
 from pathlib import Path
 
 import anndata
@@ -16,8 +22,16 @@ import pandas as pd
 import pytest
 from numpy.testing import assert_allclose
 
+import gloam.io
 from gloam.errors import GloamError
-from gloam.io import read_matrix, read_sample_sheet
+from gloam.io import (
+    STALE_TEMPORARY_AGE,
+    atomic_directory,
+    atomic_output,
+    read_matrix,
+    read_npz_checked,
+    read_sample_sheet,
+)
 
 
 def write_text(path: Path, text: str) -> Path:
@@ -261,3 +275,219 @@ def test_bad_sample_sheets_give_one_clear_message(tmp_path, text, message):
 def test_missing_sample_sheet_is_named(tmp_path):
     with pytest.raises(GloamError, match="sample sheet file .*sheet.tsv' does not exist"):
         read_sample_sheet(tmp_path / "sheet.tsv")
+
+
+# ---------------------------------------------------------------- files that cannot be opened
+#
+# Source of the error kinds: POSIX errno values EACCES, EISDIR, ENOENT, ENOTDIR and EIO, which
+# Python raises as PermissionError, IsADirectoryError, FileNotFoundError, NotADirectoryError
+# and plain OSError (Python documentation, "OS exceptions").
+
+
+@pytest.mark.parametrize("reader", ["matrix", "sheet"])
+@pytest.mark.parametrize(
+    "error,message",
+    [
+        (PermissionError(13, "Permission denied"), "permission denied; give your user read"),
+        (IsADirectoryError(21, "Is a directory"), "is a folder, not a file"),
+        (FileNotFoundError(2, "No such file or directory"), "does not exist; check the path"),
+        (NotADirectoryError(20, "Not a directory"), "goes through a file as if it were a folder"),
+        (OSError(5, "Input/output error"), r"\(Input/output error\); check the disk"),
+    ],
+)
+def test_an_input_that_cannot_be_opened_gets_the_fix_for_its_os_error(
+    tmp_path, monkeypatch, reader, error, message
+):
+    path = write_text(tmp_path / "m.tsv", "gene\ta\ng1\t1\n" if reader == "matrix" else "")
+
+    def refuse(*args, **kwargs):
+        raise error
+
+    monkeypatch.setattr(gloam.io, "open", refuse, raising=False)
+    with pytest.raises(GloamError, match=message) as caught:
+        read_matrix_or_sheet(reader, path)
+    assert "UTF-8" not in str(caught.value) and "\n" not in str(caught.value)
+
+
+@pytest.mark.skipif(not hasattr(os, "geteuid"), reason="POSIX permissions")
+def test_permission_denied_for_an_ordinary_user_is_one_line_without_utf8_advice(tmp_path):
+    """A real EACCES: as root through setpriv as user nobody, otherwise with chmod 000."""
+    path = write_text(tmp_path / "m.tsv", "gene\ta\ng1\t1\n")
+    path.chmod(0)
+    code = (
+        "from gloam.io import read_matrix\n"
+        "from gloam.errors import GloamError\n"
+        "try:\n"
+        f"    read_matrix({str(path)!r})\n"
+        "except GloamError as error:\n"
+        "    print(error)\n"
+    )
+    if os.geteuid() == 0:
+        if shutil.which("setpriv") is None:
+            pytest.skip("root without setpriv cannot lose read permission")
+        command = ["setpriv", "--reuid=65534", "--regid=65534", "--clear-groups"]
+    else:
+        command = []
+    result = subprocess.run(
+        [*command, sys.executable, "-c", code], capture_output=True, text=True, check=True
+    )
+    assert "permission denied" in result.stdout and "UTF-8" not in result.stdout
+    assert result.stdout.count("\n") == 1
+
+
+def test_a_folder_given_as_a_matrix_is_named_as_a_folder(tmp_path):
+    (tmp_path / "m.tsv").mkdir()
+    with pytest.raises(GloamError, match="is a folder, not a file; give the path of the file"):
+        read_matrix(tmp_path / "m.tsv")
+
+
+def test_a_header_without_rows_is_refused_before_the_table_is_parsed(tmp_path, monkeypatch):
+    """The quadratic step (measured with cProfile, pandas 2.3): pandas' empty-table path
+    builds one Series per column and filters them with a membership test on a list of all
+    column names.  No row means no parsing at all: read_csv must not be reached."""
+    header = "gene\t" + "\t".join(f"s{i}" for i in range(100_000)) + "\n\n"
+    path = write_text(tmp_path / "wide.tsv", header)
+
+    def parse(*args, **kwargs):
+        raise AssertionError("pandas.read_csv was called for a matrix without rows")
+
+    monkeypatch.setattr(gloam.io.pd, "read_csv", parse)
+    with pytest.raises(GloamError, match="has a header but no gene rows"):
+        read_matrix(path)
+
+
+# ---------------------------------------------------------------- atomic writes
+
+
+def _finished_process_id() -> int:
+    """The ID of a process that has ended (POSIX kill(pid, 0) then fails with ESRCH)."""
+    process = subprocess.Popen([sys.executable, "-c", "pass"])
+    process.wait()
+    return process.pid
+
+
+def test_temporary_names_its_writer_and_keeps_the_suffix(tmp_path):
+    with atomic_output(tmp_path / "prepared.h5ad") as temporary:
+        assert temporary.name.startswith(f".prepared.h5ad.pid{os.getpid()}@")
+        assert temporary.name.endswith(".partial.h5ad")
+        temporary.write_text("whole")
+    assert [p.name for p in tmp_path.iterdir()] == ["prepared.h5ad"]
+
+
+def test_a_killed_writers_temporary_goes_and_a_running_writers_stays(tmp_path):
+    host = gloam.io._HOST
+    dead = tmp_path / f".table.tsv.pid{_finished_process_id()}@{host}.abc123.partial.tsv"
+    sleeper = subprocess.Popen([sys.executable, "-c", "import time; time.sleep(60)"])
+    try:
+        alive = tmp_path / f".table.tsv.pid{sleeper.pid}@{host}.def456.partial.tsv"
+        for leftover in (dead, alive):
+            leftover.write_text("half")
+        with atomic_output(tmp_path / "table.tsv") as temporary:
+            temporary.write_text("whole")
+        assert sorted(p.name for p in tmp_path.iterdir()) == [alive.name, "table.tsv"]
+    finally:
+        sleeper.kill()
+        sleeper.wait()
+
+
+def test_another_hosts_temporary_goes_only_when_old(tmp_path):
+    fresh = tmp_path / ".t.tsv.pid1@otherhost.aaa111.partial.tsv"
+    old = tmp_path / ".t.tsv.pid2@otherhost.bbb222.partial.tsv"
+    for leftover in (fresh, old):
+        leftover.write_text("half")
+    past = time.time() - STALE_TEMPORARY_AGE - 60
+    os.utime(old, (past, past))
+    with atomic_output(tmp_path / "t.tsv") as temporary:
+        temporary.write_text("whole")
+    assert sorted(p.name for p in tmp_path.iterdir()) == [fresh.name, "t.tsv"]
+
+
+def test_atomic_directory_replaces_the_folder_whole_or_not_at_all(tmp_path):
+    target = tmp_path / "gene_sets"
+    target.mkdir()
+    (target / "old.txt").write_text("old")
+    with pytest.raises(RuntimeError):
+        with atomic_directory(target) as staging:
+            (staging / "new.txt").write_text("half")
+            raise RuntimeError("interrupted")
+    assert [p.name for p in tmp_path.iterdir()] == ["gene_sets"]
+    assert [p.name for p in target.iterdir()] == ["old.txt"]
+    dead = tmp_path / f".gene_sets.pid{_finished_process_id()}@{gloam.io._HOST}.x1.partial"
+    dead.mkdir()
+    (dead / "half.txt").write_text("half")
+    with atomic_directory(target) as staging:
+        (staging / "new.txt").write_text("whole")
+    assert [p.name for p in tmp_path.iterdir()] == ["gene_sets"]
+    assert [p.name for p in target.iterdir()] == ["new.txt"]
+
+
+# ---------------------------------------------------------------- damaged intermediates
+#
+# Source of the damage: the ZIP format (PKWARE APPNOTE 6.3): the central directory sits at
+# the end of the archive, so a cut file has none (zipfile.BadZipFile), and every member
+# carries a CRC-32 of its data, so a flipped data byte is detected on reading.
+
+
+def _good_npz(path: Path) -> dict[str, np.ndarray]:
+    arrays = {"centroids": np.arange(12.0).reshape(3, 4), "genes": np.array(["a", "b", "c"])}
+    np.savez(path, **arrays)
+    return arrays
+
+
+def test_a_whole_npz_is_read_as_written(tmp_path):
+    """Reference: numpy.load of the same file."""
+    path = tmp_path / "c3.npz"
+    written = _good_npz(path)
+    read = read_npz_checked(path, "scan file", required=["centroids"])
+    assert set(read) == set(written)
+    for key, value in written.items():
+        np.testing.assert_array_equal(read[key], value)
+
+
+def _cut(data: bytes, path: Path) -> bytes:
+    return data[: len(data) // 2]
+
+
+def _flip_data_byte(data: bytes, path: Path) -> bytes:
+    with zipfile.ZipFile(path) as archive:
+        info = archive.getinfo("centroids.npy")
+    # Local header: 30 bytes + name + extra; the data follow (stored, not compressed).
+    start = info.header_offset + 30 + len(info.filename.encode()) + len(info.extra)
+    position = start + info.file_size - 1
+    return data[:position] + bytes([data[position] ^ 0xFF]) + data[position + 1 :]
+
+
+@pytest.mark.parametrize(
+    "damage",
+    [_cut, lambda data, path: b"", lambda data, path: b"not an archive\n", _flip_data_byte],
+    ids=["cut", "empty", "text", "flipped_byte"],
+)
+def test_a_damaged_npz_is_removed_and_named_in_one_line(tmp_path, damage):
+    path = tmp_path / "scan" / "c5.npz"
+    path.parent.mkdir()
+    _good_npz(path)
+    path.write_bytes(damage(path.read_bytes(), path))
+    with pytest.raises(GloamError) as caught:
+        read_npz_checked(path, "scan file")
+    message = str(caught.value)
+    assert f"scan file {str(path)!r}" in message and "has been removed" in message
+    assert "start the run again" in message and "\n" not in message
+    assert not path.exists()
+
+
+def test_an_npz_without_a_required_array_is_damaged(tmp_path):
+    path = tmp_path / "consensus.npz"
+    _good_npz(path)
+    with pytest.raises(GloamError, match="no array 'memberships'.*has been removed"):
+        read_npz_checked(path, "consensus file", required=["centroids", "memberships"])
+    assert not path.exists()
+
+
+def test_a_damaged_npz_is_kept_when_asked_and_a_missing_one_is_not_called_damaged(tmp_path):
+    path = tmp_path / "c2.npz"
+    path.write_bytes(b"PK\x03\x04 cut short")
+    with pytest.raises(GloamError, match="damaged or incomplete .*; delete it and start"):
+        read_npz_checked(path, "scan file", remove_damaged=False)
+    assert path.exists()
+    with pytest.raises(GloamError, match="does not exist; start the run again"):
+        read_npz_checked(tmp_path / "c9.npz", "scan file")

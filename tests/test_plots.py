@@ -482,7 +482,7 @@ def saved(tmp_path_factory, every_figure):
     paths = [folder / "v.png", folder / "v.pdf", folder / "v.svg"]
     save_figure(figure, *paths)
     first = {path.suffix: path.read_bytes() for path in paths}
-    save_figure(figure, folder / "again.pdf", folder / "again.svg")
+    save_figure(figure, folder / "again.pdf", folder / "again.svg", folder / "again.png")
     return folder, first
 
 
@@ -529,13 +529,17 @@ def test_svg_keeps_text_as_text(saved):
     assert "<text" in svg and "Chosen c = 4" in svg
 
 
-def test_pdf_and_svg_are_byte_identical_when_saved_twice(saved):
-    """Reproducible builds: no creation date (ISO 32000-1 §14.3.3 /CreationDate) and fixed
-    SVG ids, so two saves of one figure give the same bytes."""
+def test_pdf_svg_and_png_are_byte_identical_when_saved_twice(saved):
+    """Reproducible builds: no creation date (ISO 32000-1 §14.3.3 /CreationDate; SVG 1.1
+    <dc:date>), fixed SVG ids and a PNG without a time chunk (PNG spec §11.3.6.1 tIME), so two
+    saves of one figure give the same bytes."""
     folder, first = saved
     assert (folder / "again.pdf").read_bytes() == first[".pdf"]
     assert (folder / "again.svg").read_bytes() == first[".svg"]
+    assert (folder / "again.png").read_bytes() == first[".png"]
     assert b"CreationDate" not in first[".pdf"]
+    assert b"<dc:date>" not in first[".svg"]
+    assert b"tIME" not in first[".png"]
 
 
 def test_save_figure_refuses_unknown_formats_and_writes_nothing(tmp_path, every_figure):

@@ -446,6 +446,34 @@ def test_sheet_samples_must_be_in_the_matrix_and_extra_matrix_samples_warn():
     assert "unlisted" not in prepared.raw.columns
 
 
+def test_a_matrix_with_samples_as_rows_is_called_transposed():
+    """The documented orientation (genes in rows, samples in columns) read the wrong way
+    round: the sheet's names sit in the row index, or (names lost) the shape is inverted."""
+    sheet = make_sheet([0, 1, 2], replicates=2)
+    counts = make_counts(sheet, n_genes=30)
+    with pytest.raises(
+        GloamError,
+        match="matrix looks transposed: 6 of the sample sheet's samples are row names of the "
+        "matrix, not column names .*; put genes in rows and samples in columns",
+    ):
+        prepare_expression(counts.T, sheet, _steps())
+    unnamed = counts.T.reset_index(drop=True)
+    unnamed.index = unnamed.index.astype(str)
+    with pytest.raises(GloamError, match="looks transposed: .*6 rows but 30 columns"):
+        prepare_expression(unnamed, sheet, _steps())
+
+
+def test_raw_counts_declared_log_warn_from_their_values():
+    """Counts: integers whose variance rises with the mean (Poisson, slope 1), far above any
+    log-scale value; the opposite mistake warns too (see tests/test_sanity.py)."""
+    sheet = make_sheet([0, 1, 2], replicates=2)
+    counts = make_counts(sheet)
+    with pytest.warns(GloamWarning, match="declared value_type 'log' look like raw counts"):
+        prepare_expression(counts, sheet, _steps(value_type="log"))
+    with pytest.warns(GloamWarning, match="declared value_type 'counts' look like log values"):
+        prepare_expression(np.log2(counts + 1), sheet, _steps(min_samples_expressed=0))
+
+
 def test_empty_and_duplicated_matrices_are_errors():
     sheet = make_sheet([0, 1, 2])
     counts = make_counts(sheet)

@@ -361,3 +361,45 @@ def test_independent_kind_has_uncorrelated_time_points():
     profiles = experiment.matrix.to_numpy() - experiment.truth["base_mean"].to_numpy()[:, None]
     n_times = len(DEFAULT_TIMES_HOURS)
     np.testing.assert_allclose(np.corrcoef(profiles.T), np.eye(n_times), atol=0.07)
+
+
+# ------------------------------------------------------------- switching (two conditions)
+
+
+def test_switching_truth_marks_exactly_the_genes_whose_profiles_differ():
+    """Definition of a condition x time interaction (the conditions' profiles are not
+    parallel): without noise (log data, log_noise_sd = 0) an unchanged gene's mut values
+    equal its wt values, and a changed gene's differ by more than a constant shift."""
+    from gloam.simulate import SWITCH_KINDS, simulate_switching
+
+    experiment = simulate_switching(
+        value_type="log", log_noise_sd=0.0, n_genes=300, switch_share=0.25, seed=3
+    )
+    truth = experiment.truth
+    samples = experiment.samples
+    values = experiment.matrix.to_numpy()
+    wt = values[:, (samples["condition"] == "wt").to_numpy()]
+    mut = values[:, (samples["condition"] == "mut").to_numpy()]
+    difference = mut - wt  # the sheet lists both conditions in the same time/replicate order
+    not_parallel = np.ptp(difference, axis=1) > 1e-9
+    assert (truth["changed"].to_numpy() == not_parallel).all()
+    assert (truth["changed"] == truth["switched"]).all()
+    assert set(truth["change"]) <= set(SWITCH_KINDS)
+    lost = (truth["change"] == "lost_response").to_numpy()
+    assert (truth.loc[lost, "response_mut"] == "flat").all()
+    assert np.ptp(mut[lost], axis=1).max() < 1e-9
+    planted = (truth["response_wt"] != "flat").sum()
+    assert truth["changed"].sum() == round(0.25 * planted)
+
+
+def test_switching_null_has_no_changed_gene_and_bad_settings_are_refused():
+    from gloam.simulate import simulate_switching
+
+    null = simulate_switching(null=True, n_genes=200, seed=4)
+    assert not null.truth["changed"].any()
+    assert (null.truth["change"] == "none").all()
+    assert null.matrix.shape == (200, 2 * len(DEFAULT_TIMES_HOURS) * 3)
+    with pytest.raises(GloamError, match="n_replicates"):
+        simulate_switching(n_replicates=1)
+    with pytest.raises(GloamError, match="switch_share"):
+        simulate_switching(switch_share=0.0)

@@ -21,9 +21,11 @@ from gloam.errors import GloamError
 from gloam.structure import (
     DEFAULT_TEST_CLUSTERS,
     FCI_RESOLUTION,
+    PAIR_COLUMNS,
     StructureTest,
     _calibrate_null,
     fuzzy_cluster_index,
+    nearest_pair_separation,
     structure_test,
 )
 
@@ -361,3 +363,50 @@ def test_index_rejects_bad_input():
         fuzzy_cluster_index(_GOOD, 0.5)
     with pytest.raises(GloamError, match="at least 10 genes"):
         fuzzy_cluster_index(_GOOD[:5], 1.5)
+
+
+# --------------------------------------------------------------------------------------------
+# Nearest-pair separation (SigClust on each merge; Kimes et al. 2017, Biometrics 73:811)
+# --------------------------------------------------------------------------------------------
+
+
+def _fcm_partition(X: np.ndarray, c: int, m: float = 1.5):
+    from gloam.fcm import fuzzy_cmeans
+
+    result = fuzzy_cmeans(X, c, m, n_starts=5, rng=0)
+    best = result.best_index
+    return result.memberships[best], result.centroids[best]
+
+
+def test_a_cut_through_one_jittered_response_is_not_separated():
+    # One sustained rise whose midpoint varies continuously between genes (a timing jitter):
+    # fuzzy c-means at c = 2 cuts it into "earlier" and "later", but the two halves pooled
+    # look like one Gaussian cloud, so the cut is not significant (Liu et al. 2008 null).
+    rng = np.random.default_rng(4)
+    midpoint = rng.normal(6.0, 1.0, 400)
+    profiles = 1.0 / (1.0 + np.exp(-(TIMES[None, :] - midpoint[:, None]) / 1.5))
+    X = _zscore(profiles + 0.05 * rng.normal(size=profiles.shape))
+    U, V = _fcm_partition(X, 2)
+    pairs = nearest_pair_separation(X, U, None, V, 1.5, n_null=20, rng=1)
+    assert len(pairs) == 1
+    assert pairs["p_value"].iloc[0] > 0.01
+
+
+def test_two_distinct_responses_are_separated():
+    X = _response_shapes(400, 2, 0.3, seed=5)
+    U, V = _fcm_partition(X, 2)
+    pairs = nearest_pair_separation(X, U, None, V, 1.5, n_null=20, rng=1)
+    assert list(pairs.columns) == list(PAIR_COLUMNS)
+    assert pairs["p_value"].iloc[0] < 1e-4
+    assert pairs["n_genes"].iloc[0] <= 400
+
+
+def test_each_cluster_is_paired_with_its_most_correlated_neighbour():
+    X = _response_shapes(500, 5, 0.3, seed=6)
+    U, V = _fcm_partition(X, 5)
+    pairs = nearest_pair_separation(X, U, None, V, 1.5, n_null=10, rng=1)
+    correlation = np.corrcoef(V)
+    np.fill_diagonal(correlation, -np.inf)
+    expected = {tuple(sorted((k, int(correlation[k].argmax())))) for k in range(5)}
+    assert set(zip(pairs["cluster"], pairs["nearest"], strict=True)) == expected
+    assert (pairs["p_value"] < 1e-4).all()

@@ -63,8 +63,8 @@ QUALITY_FLAGS: dict[str, str] = {
         "covariance; clusters would be arbitrary cuts of a continuum"
     ),
     "no_robust_c": (
-        "no scanned number of clusters gave clusters that are robust, sizeable, distinct and "
-        "coherent"
+        "no scanned number of clusters gave clusters that are robust, sizeable, distinct, "
+        "coherent and separated"
     ),
     "few_starts_at_optimum": (
         "few random starts reached the best objective at the c used, even after adding starts"
@@ -74,6 +74,10 @@ QUALITY_FLAGS: dict[str, str] = {
     ),
     "near_empty_clusters": "a cluster at the c used has fewer core genes than the minimum",
     "similar_centroids": "two centroids at the c used are nearly the same response",
+    "unseparated_clusters": (
+        "a cluster at the c used and its most similar neighbour look like one response cut in "
+        "two (no more two-cluster structure than one Gaussian)"
+    ),
     "incoherent_clusters": (
         "a cluster at the c used gathers genes that barely agree (a centroid near the flat profile)"
     ),

@@ -4,10 +4,15 @@ Readers turn every parse problem into a :class:`~gloam.errors.GloamError` that n
 the file, the row or column and the fix.  Gene IDs are always read as text, so IDs
 such as ``1-Mar``, ``SEPT2`` or ``0001`` are never turned into dates or numbers.
 
-Every writer goes through :func:`atomic_output`: the result is written to a
-temporary file beside the target and renamed into place only when complete, so
-an interrupted or failed step never leaves a half-written result that a later
-step (or Snakemake) could mistake for a finished one.
+Every writer goes through :func:`atomic_output` (:func:`atomic_directory` for a folder of
+files): the result is written to a temporary file beside the target and renamed into place
+only when complete, so an interrupted or failed step never leaves a half-written result that
+a later step (or Snakemake) could mistake for a finished one.  A temporary carries the process
+ID and host of its writer in its name, so the next write of the same target removes the
+leftovers of a killed writer without touching those of a writer still running.
+
+Intermediate ``.npz`` files are read with :func:`read_npz_checked`, which removes a damaged
+file so that a rerun of the workflow remakes it.
 """
 
 from __future__ import annotations
@@ -19,8 +24,12 @@ import gzip
 import io
 import os
 import re
+import shutil
+import socket
 import tempfile
+import time
 import warnings
+import zipfile
 import zlib
 from collections.abc import Iterable, Iterator, Mapping, Sequence
 from pathlib import Path
@@ -33,7 +42,9 @@ from gloam.errors import GloamError
 __all__ = [
     "read_matrix",
     "read_sample_sheet",
+    "read_npz_checked",
     "atomic_output",
+    "atomic_directory",
     "write_table",
     "write_lines",
     "write_gmt",
@@ -47,23 +58,83 @@ def _current_umask() -> int:
     return mask
 
 
+#: This host in a form that can stand in a file name.
+_HOST = re.sub(r"[^A-Za-z0-9]", "_", socket.gethostname()) or "host"
+
+#: A temporary whose writer cannot be checked (another host, or a reused process ID) is
+#: treated as left behind once it has not been modified for this long (seconds): writers
+#: write continuously, and no gloam step writes one file for a day (rule of thumb).
+STALE_TEMPORARY_AGE = 24 * 3600.0
+
+
+def _temporary_affixes(target: Path) -> tuple[str, str]:
+    """Prefix and suffix of this process's temporaries for ``target``.
+
+    ``.<name>.pid<pid>@<host>.<random>.partial<suffixes>``: hidden, recognisable as a
+    temporary of ``target``, and naming its writer.  The suffixes of ``target`` are kept so
+    that writers that look at the extension (``.gz``, ``.h5ad``, ``.png``) behave as for the
+    real target.
+    """
+    return f".{target.name}.pid{os.getpid()}@{_HOST}.", f".partial{''.join(target.suffixes)}"
+
+
+def _writer_is_gone(name: str, target: Path) -> bool:
+    """Whether the temporary ``name`` of ``target`` was left by a writer that has ended."""
+    suffix = re.escape("".join(target.suffixes))
+    match = re.fullmatch(
+        rf"\.{re.escape(target.name)}\.pid(\d+)@([A-Za-z0-9_]+)\.\w+\.partial{suffix}", name
+    )
+    if match is None:
+        # Named by an earlier gloam without its writer: removed as before.
+        return True
+    pid, host = int(match.group(1)), match.group(2)
+    if host != _HOST or pid == os.getpid():
+        return False
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return True
+    except PermissionError:  # alive, owned by another user
+        return False
+    return False
+
+
+def _remove_stale_temporaries(target: Path) -> None:
+    """Remove the temporaries of ``target`` whose writer was killed (SIGKILL, power loss).
+
+    A temporary is stale when its writer's process on this host no longer exists, or when
+    it has not been modified for :data:`STALE_TEMPORARY_AGE` seconds.  Temporaries of a
+    writer still running (another run sharing the folder) are left alone.
+    """
+    suffix = "".join(target.suffixes)
+    pattern = f".{glob.escape(target.name)}.*.partial{glob.escape(suffix)}"
+    now = time.time()
+    for candidate in target.parent.glob(pattern):
+        try:
+            old = now - candidate.lstat().st_mtime > STALE_TEMPORARY_AGE
+        except FileNotFoundError:
+            continue  # its writer finished or another cleaner was faster
+        if old or _writer_is_gone(candidate.name, target):
+            if candidate.is_dir() and not candidate.is_symlink():
+                shutil.rmtree(candidate, ignore_errors=True)
+            else:
+                candidate.unlink(missing_ok=True)
+
+
 @contextlib.contextmanager
 def atomic_output(path: str | os.PathLike[str]) -> Iterator[Path]:
     """Yield a temporary path beside ``path``; rename it to ``path`` on success.
 
-    On any exception the temporary file is removed and ``path`` is left untouched.
-    The suffix of ``path`` is kept on the temporary name, so writers that look at
-    the extension (``.gz``, ``.h5ad``, ``.png``) behave as for the real target.
+    On any exception the temporary file is removed and ``path`` is left untouched.  The
+    temporary is named ``.<name>.pid<pid>@<host>.<random>.partial<suffixes>`` (see
+    :func:`_temporary_affixes`); before writing, leftovers of a killed writer of the same
+    target are removed, and temporaries of a writer still running are kept.
     """
     target = Path(path)
     target.parent.mkdir(parents=True, exist_ok=True)
-    suffix = "".join(target.suffixes)
-    # Leftovers of a writer that was killed (SIGKILL skips the cleanup below) go first.
-    for stale in target.parent.glob(f".{glob.escape(target.name)}.*.partial{glob.escape(suffix)}"):
-        stale.unlink(missing_ok=True)
-    handle, temporary_name = tempfile.mkstemp(
-        prefix=f".{target.name}.", suffix=f".partial{suffix}", dir=target.parent
-    )
+    _remove_stale_temporaries(target)
+    prefix, suffix = _temporary_affixes(target)
+    handle, temporary_name = tempfile.mkstemp(prefix=prefix, suffix=suffix, dir=target.parent)
     os.close(handle)
     temporary = Path(temporary_name)
     try:
@@ -74,6 +145,31 @@ def atomic_output(path: str | os.PathLike[str]) -> Iterator[Path]:
     finally:
         if temporary.exists():
             temporary.unlink()
+
+
+@contextlib.contextmanager
+def atomic_directory(path: str | os.PathLike[str]) -> Iterator[Path]:
+    """Yield an empty temporary folder beside ``path``; it replaces ``path`` on success.
+
+    The folder counterpart of :func:`atomic_output` (same naming, same removal of a killed
+    writer's leftovers): on any exception the temporary folder is removed and ``path`` is
+    left untouched; on success an existing ``path`` is removed and the folder renamed.
+    """
+    target = Path(path)
+    target.parent.mkdir(parents=True, exist_ok=True)
+    _remove_stale_temporaries(target)
+    prefix, suffix = _temporary_affixes(target)
+    staging = Path(tempfile.mkdtemp(prefix=prefix, suffix=suffix, dir=target.parent))
+    try:
+        yield staging
+        # mkdtemp creates 0700; give the folder the mode an ordinary new folder would have.
+        os.chmod(staging, 0o777 & ~_current_umask())
+        if target.is_dir() and not target.is_symlink():
+            shutil.rmtree(target)
+        os.replace(staging, target)
+    finally:
+        if staging.exists():
+            shutil.rmtree(staging, ignore_errors=True)
 
 
 def write_table(table: pd.DataFrame, path: str | os.PathLike[str], *, index: bool = False) -> None:
@@ -118,17 +214,28 @@ def write_gmt(
 
 
 def read_gmt(path: str | os.PathLike[str]) -> dict[str, tuple[str, list[str]]]:
-    """Read a GMT file written by :func:`write_gmt` (or any GMT file)."""
+    """Read a GMT file written by :func:`write_gmt` (or any GMT file).
+
+    Raises
+    ------
+    GloamError
+        A file that cannot be opened (with the fix for the kind of error), is not UTF-8, or
+        has a line with fewer than 2 fields.
+    """
+    path = Path(path)
+    _require_file(path, "gene-set")
+    lines = _read_text(path, "gene-set").split("\n")
+    if lines[-1] == "":
+        lines.pop()
     gene_sets: dict[str, tuple[str, list[str]]] = {}
-    with open(path, encoding="utf-8") as stream:
-        for line_number, line in enumerate(stream, start=1):
-            fields = line.rstrip("\n").split("\t")
-            if len(fields) < 2:
-                raise GloamError(
-                    f"{path}: line {line_number} has fewer than 2 tab-separated fields; "
-                    "a GMT line is name, description, genes..."
-                )
-            gene_sets[fields[0]] = (fields[1], [gene for gene in fields[2:] if gene])
+    for line_number, line in enumerate(lines, start=1):
+        fields = line.split("\t")
+        if len(fields) < 2:
+            raise GloamError(
+                f"{path}: line {line_number} has fewer than 2 tab-separated fields; "
+                "a GMT line is name, description, genes..."
+            )
+        gene_sets[fields[0]] = (fields[1], [gene for gene in fields[2:] if gene])
     return gene_sets
 
 
@@ -141,11 +248,49 @@ _TEXT_SUFFIXES = {".tsv": "\t", ".txt": "\t", ".tab": "\t", ".csv": ","}
 SAMPLE_SHEET_COLUMNS = ("sample", "time", "replicate", "condition")
 
 
+def _access_error(path: Path, what: str, error: OSError) -> GloamError:
+    """The one message for a file that cannot be opened, with the fix for the kind of error."""
+    name = str(path)
+    if isinstance(error, FileNotFoundError):
+        return GloamError(f"{what} file {name!r} does not exist; check the path")
+    if isinstance(error, IsADirectoryError):
+        return GloamError(
+            f"{what} path {name!r} is a folder, not a file; give the path of the file itself"
+        )
+    if isinstance(error, NotADirectoryError):
+        return GloamError(
+            f"{what} path {name!r} goes through a file as if it were a folder; check the path"
+        )
+    if isinstance(error, PermissionError):
+        return GloamError(
+            f"{what} file {name!r} cannot be read: permission denied; give your user read "
+            "permission on the file (and search permission on its folders), e.g. ask its "
+            "owner to run chmod a+r on it, or copy it to a folder of your own"
+        )
+    reason = error.strerror or str(error)
+    return GloamError(
+        f"{what} file {name!r} cannot be read ({reason}); check the disk or network share it "
+        "is on, or copy the file again"
+    )
+
+
 def _require_file(path: Path, what: str) -> None:
-    if not path.exists():
-        raise GloamError(f"{what} file {str(path)!r} does not exist; check the path")
-    if not path.is_file():
-        raise GloamError(f"{what} path {str(path)!r} is not a file; give the path of a file")
+    """Refuse a path that is not a readable regular file, with the fix for each case."""
+    try:
+        if not path.exists():
+            raise FileNotFoundError(path)
+        if path.is_dir():
+            raise IsADirectoryError(path)
+        if not path.is_file():
+            raise GloamError(
+                f"{what} path {str(path)!r} is not a regular file (a device, pipe or socket); "
+                "give the path of a file"
+            )
+        # Opening (not only looking) is what reveals a permission the user lacks.
+        with open(path, "rb"):
+            pass
+    except OSError as error:
+        raise _access_error(path, what, error) from error
 
 
 def _text_separator(path: Path, what: str) -> str:
@@ -196,7 +341,8 @@ def _read_text(path: Path, what: str) -> str:
     Raises
     ------
     GloamError
-        A damaged or incomplete gzip file, a file that cannot be read or is not UTF-8.
+        A damaged or incomplete gzip file, a file that is not UTF-8, or a file that cannot
+        be opened (permission denied, a folder, missing; each with its own fix).
     """
     try:
         if _is_gzipped_name(path):
@@ -206,11 +352,13 @@ def _read_text(path: Path, what: str) -> str:
             return stream.read()
     except _GZIP_ERRORS as error:
         raise _damaged_gzip_error(path, what, error) from error
-    except (OSError, UnicodeDecodeError) as error:
+    except UnicodeDecodeError as error:
         raise GloamError(
             f"{what} file {str(path)!r} cannot be read as text ({error}); "
             "give an uncompressed or gzipped UTF-8 table"
         ) from error
+    except OSError as error:
+        raise _access_error(path, what, error) from error
 
 
 def _read_header(text: str, separator: str, path: Path, what: str) -> list[str]:
@@ -357,6 +505,11 @@ def _read_text_matrix(path: Path) -> pd.DataFrame:
             f"matrix file {str(path)!r} has duplicate sample names in the header: "
             f"{_name_duplicates(samples)}; make every sample name unique"
         )
+    if not text.partition("\n")[2].strip():
+        # Before any per-column work: pandas' empty-table path is quadratic in the columns.
+        raise GloamError(
+            f"matrix file {str(path)!r} has a header but no gene rows; the matrix is empty"
+        )
     _check_field_counts(text, separator, len(header), path)
     # Positional column labels keep pandas from renaming duplicates or reinterpreting the
     # header; gene IDs are read as text and never NA-converted or date-parsed.
@@ -381,10 +534,6 @@ def _read_text_matrix(path: Path) -> pd.DataFrame:
         ) from error
     table.columns = pd.Index(samples, dtype=object)
     table.index = pd.Index([str(gene).strip() for gene in table.index], dtype=object, name="gene")
-    if table.shape[0] == 0:
-        raise GloamError(
-            f"matrix file {str(path)!r} has a header but no gene rows; the matrix is empty"
-        )
     text_columns = [
         name for name, kind in table.dtypes.items() if not pd.api.types.is_numeric_dtype(kind)
     ]
@@ -577,3 +726,95 @@ def read_sample_sheet(path: str | os.PathLike[str]) -> pd.DataFrame:
                 f"{'/'.join(keys)}; give each replicate of a time point its own label"
             )
     return table.reset_index(drop=True)
+
+
+# What numpy and zipfile raise for a truncated or corrupt .npz: BadZipFile for a cut or
+# overwritten archive or a CRC mismatch, EOFError for an empty file, ValueError for a member
+# that is not an array (or a file that is not an archive at all), zlib.error for corrupt
+# compressed data, OSError for a member that cannot be read, KeyError for a missing array.
+_NPZ_DAMAGE = (zipfile.BadZipFile, EOFError, ValueError, OSError, KeyError, zlib.error)
+_ACCESS_ERRORS = (FileNotFoundError, IsADirectoryError, NotADirectoryError, PermissionError)
+
+
+def read_npz_checked(
+    path: str | os.PathLike[str],
+    what: str,
+    *,
+    remove_damaged: bool = True,
+    required: Iterable[str] = (),
+) -> dict[str, np.ndarray]:
+    """Read every array of an intermediate ``.npz``; remove it when it is damaged.
+
+    A truncated or corrupt intermediate (a full disk, a killed copy) would otherwise fail
+    every rerun the same way until deleted by hand; removed, it is simply remade by the
+    step that writes it when the run is started again.
+
+    Parameters
+    ----------
+    path : path-like
+        An ``.npz`` written by :func:`numpy.savez` (or ``savez_compressed``).
+    what : str
+        What the file is, for the message (e.g. ``"scan file"``).
+    remove_damaged : bool
+        Remove a damaged file (default True).
+    required : iterable of str
+        Array names the file must hold; a missing one counts as damage.
+
+    Returns
+    -------
+    dict of str to ndarray
+        Every array of the file, loaded into memory, by name.
+
+    Raises
+    ------
+    GloamError
+        One line: the file is missing or cannot be opened (nothing removed), or it is
+        damaged (named, with whether it was removed and that the run should be started
+        again).
+    """
+    path = Path(path)
+    try:
+        loaded = np.load(path, allow_pickle=False)
+        if not isinstance(loaded, np.lib.npyio.NpzFile):
+            raise ValueError("a single array, not an .npz archive")
+        with loaded as data:
+            arrays = {key: data[key] for key in data.files}
+        missing = [key for key in required if key not in arrays]
+        if missing:
+            raise KeyError(f"no array {missing[0]!r}")
+    except _ACCESS_ERRORS as error:
+        if isinstance(error, FileNotFoundError):
+            raise GloamError(
+                f"{what} {str(path)!r} does not exist; start the run again so that its step "
+                "writes it"
+            ) from error
+        raise _access_error(path, what, error) from error
+    except _NPZ_DAMAGE as error:
+        if isinstance(error, ValueError) and "allow_pickle" in str(error) and _is_zip(path):
+            raise  # a whole archive holding object arrays: a writer's bug, not damage
+        cause = " ".join(str(error).split()) or type(error).__name__
+        if not remove_damaged:
+            raise GloamError(
+                f"{what} {str(path)!r} is damaged or incomplete ({cause}); delete it and "
+                "start the run again to remake it"
+            ) from error
+        try:
+            path.unlink(missing_ok=True)
+        except OSError as removal:
+            raise GloamError(
+                f"{what} {str(path)!r} is damaged or incomplete ({cause}) and could not be "
+                f"removed ({removal.strerror or removal}); delete it and start the run again"
+            ) from error
+        raise GloamError(
+            f"{what} {str(path)!r} was damaged or incomplete ({cause}) and has been removed; "
+            "start the run again to remake it"
+        ) from error
+    return arrays
+
+
+def _is_zip(path: Path) -> bool:
+    try:
+        with zipfile.ZipFile(path) as archive:
+            return archive.testzip() is None
+    except (OSError, zipfile.BadZipFile):
+        return False

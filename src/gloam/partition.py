@@ -39,6 +39,7 @@ from gloam.errors import ConvergenceWarning, GloamError
 
 __all__ = [
     "CORE_LEVEL_FOR_CRITERIA",
+    "SEPARATION_N_NULL",
     "PartitionAtC",
     "solve_partition",
     "centroid_correlation",
@@ -48,6 +49,8 @@ __all__ = [
 #: Membership a gene needs in its top cluster to count towards that cluster's size in the
 #: criteria for c (a gene at 0.5 or more belongs to no other cluster more).
 CORE_LEVEL_FOR_CRITERIA = 0.5
+#: Null data sets of each nearest-pair separation test (as the workflow's structure test).
+SEPARATION_N_NULL = 30
 
 #: Iterations and tolerance of the reclustering of each resample (warm-started: it starts next
 #: to the answer, so few iterations are needed; memberships to 1e-3 suffice for intervals).
@@ -192,6 +195,7 @@ def solve_partition(
     n_resamples: int = 20,
     replicates: np.ndarray | None = None,
     sample_column: np.ndarray | None = None,
+    separation_n_null: int = SEPARATION_N_NULL,
 ) -> PartitionAtC:
     """Cluster ``X`` into ``n_clusters`` and gather the evidence for judging that c.
 
@@ -220,6 +224,9 @@ def solve_partition(
         genes are resampled.
     sample_column : ndarray of shape (n_samples,), int, optional
         Column of ``X`` each sample belongs to.
+    separation_n_null : int
+        Null data sets of the test of each cluster against its nearest neighbour
+        (:func:`gloam.structure.nearest_pair_separation`); 0 skips it.
 
     Returns
     -------
@@ -229,7 +236,9 @@ def solve_partition(
         ``min_centroid_distance`` (fuzzy c-means consensus), ``max_centroid_correlation``,
         ``n_starts``, ``n_at_optimum``, ``n_not_converged``, ``mean_start_agreement``,
         ``min_jaccard``, ``mean_jaccard``, ``min_core_genes``, ``n_noise``, ``noise_distance``
-        and ``resampling`` (``replicates``, ``genes`` or ``none``).
+        ``resampling`` (``replicates``, ``genes`` or ``none``) and ``max_pair_p_value`` (the
+        largest p-value of the nearest-pair tests, Bonferroni-corrected for the number of
+        pairs tested; NaN when none was tested).
     """
     from gloam.consensus import consensus_partition
     from gloam.fcm import FuzzyPartition
@@ -293,6 +302,23 @@ def solve_partition(
             sample_column=sample_column,
             rng=rng,
         )
+    max_pair_p_value = float("nan")
+    if separation_n_null > 0:
+        from gloam.structure import nearest_pair_separation
+
+        pairs = nearest_pair_separation(
+            X,
+            memberships,
+            noise,
+            centroids,
+            m,
+            core_level=CORE_LEVEL_FOR_CRITERIA,
+            n_null=separation_n_null,
+            rng=rng,
+        )
+        tested = pairs["p_value"].dropna().to_numpy(dtype=float)
+        if tested.size:
+            max_pair_p_value = float(min(1.0, tested.max() * tested.size))
     top_is_noise = noise > memberships.max(axis=1)
     top = memberships.argmax(axis=1)
     core = (~top_is_noise) & (memberships.max(axis=1) >= CORE_LEVEL_FOR_CRITERIA)
@@ -329,6 +355,7 @@ def solve_partition(
         "n_noise": int(top_is_noise.sum()),
         "noise_distance": float(delta),
         "resampling": scheme,
+        "max_pair_p_value": max_pair_p_value,
     }
     return PartitionAtC(
         centroids=centroids,

@@ -1245,7 +1245,10 @@ def _criteria_matrix(
     Uses the table's own bool columns when present (the decision that was made), else the
     ``failed`` text, else the thresholds.
     """
-    known = ["structure", "robust", "sizeable", "distinct"]
+    from gloam.validity import CRITERIA
+
+    decided = [name for name in CRITERIA if name in table.columns and table[name].dtype == bool]
+    known = decided or ["structure", "robust", "sizeable", "distinct"]
     names = list(known)
     if "failed" in table.columns:
         failed_sets = [

@@ -2,8 +2,10 @@
 
 Steps, in order (each recorded per gene in the report):
 
-1. Validate values (Inf; for counts also missing, negative and non-integer values) and match
-   the matrix's samples to the sample sheet.
+1. Validate values (Inf; for counts also missing and negative values) and match the matrix's
+   samples to the sample sheet (a transposed matrix is named as such).  Warn, from the values
+   themselves, when they do not fit the declared value type, and when one count dominates a
+   sample's library (:mod:`gloam.sanity`).
 2. Library-size normalisation of counts (CPM or median-of-ratios size factors) and
    ``log2(x + pseudocount)``; values declared ``log`` are used as they are.  Both are
    computed over every sample of the sheet, before any condition is selected, so runs on
@@ -45,6 +47,8 @@ import pandas as pd
 
 from gloam.errors import GloamError, GloamWarning
 from gloam.io import atomic_output, write_table
+from gloam.sanity import cell_examples as _examples
+from gloam.sanity import check_libraries, check_value_scale
 
 __all__ = [
     "DROP_REASONS",
@@ -107,8 +111,6 @@ LOG_MEAN_LAYER = "log_mean"
 
 # A profile whose SD is below this share of its magnitude is constant up to rounding.
 _FLAT_RELATIVE_TOLERANCE = 1e-10
-# Counts further than this from an integer are reported as non-integer (rounding noise aside).
-_INTEGER_TOLERANCE = 1e-6
 
 _CHOICES = {
     "value_type": ("counts", "log"),
@@ -617,49 +619,69 @@ def _is_flat(mean: np.ndarray, sd: np.ndarray) -> np.ndarray:
 # Validation of the inputs
 
 
-def _examples(genes: np.ndarray, samples: np.ndarray, mask: np.ndarray, limit: int = 3) -> str:
-    rows, cols = np.nonzero(mask)
-    shown = [
-        f"gene {genes[r]!r} in sample {samples[c]!r}"
-        for r, c in zip(rows[:limit], cols[:limit], strict=True)
-    ]
-    more = f" and {rows.size - limit} more" if rows.size > limit else ""
-    return "; ".join(shown) + more
-
-
 def _validate_values(
-    values: np.ndarray, genes: np.ndarray, samples: np.ndarray, value_type: str
+    values: np.ndarray,
+    genes: np.ndarray,
+    samples: np.ndarray,
+    value_type: str,
+    *,
+    check_scale: bool = True,
 ) -> None:
+    """Refuse values no preparation can use; warn when they do not fit ``value_type``.
+
+    The scale check (:func:`gloam.sanity.check_value_scale`) runs when ``check_scale``.
+    """
     infinite = np.isinf(values)
     if infinite.any():
         raise GloamError(
             f"the matrix holds infinite values ({_examples(genes, samples, infinite)}); "
             "replace them with real values, or with NA if they are missing"
         )
-    if value_type != "counts":
+    if value_type == "counts":
+        missing = np.isnan(values)
+        if missing.any():
+            raise GloamError(
+                f"the counts matrix has missing values ({_examples(genes, samples, missing)}); "
+                "counts of unobserved genes are 0, so fix the file, or set value_type 'log' if "
+                "the values are already on a log scale"
+            )
+        negative = values < 0
+        if negative.any():
+            raise GloamError(
+                f"the counts matrix has negative values "
+                f"({_examples(genes, samples, negative)}); counts are >= 0 — set value_type "
+                "'log' if the values are already on a log scale"
+            )
+    if check_scale:
+        check_value_scale(values, value_type, genes=genes, samples=samples)
+
+
+def _check_not_transposed(matrix: pd.DataFrame, sheet: pd.DataFrame, absent: list[str]) -> None:
+    """Refuse a matrix with samples as rows, when the names or the shape show it.
+
+    Called when sample-sheet samples are missing from the columns: if at least half of them
+    are row names instead, or the matrix has no more rows than the sheet has samples but more
+    columns (genes outnumber samples in any expression matrix), the matrix is transposed.
+    """
+    rows = set(matrix.index.astype(str))
+    as_rows = [sample for sample in absent if sample in rows]
+    n_rows, n_columns = matrix.shape
+    if as_rows and 2 * len(as_rows) >= len(absent):
+        evidence = (
+            f"{len(as_rows)} of the sample sheet's samples are row names of the matrix, not "
+            f"column names (e.g. {as_rows[:3]})"
+        )
+    elif not (set(matrix.columns) & set(sheet["sample"])) and n_rows <= len(sheet) < n_columns:
+        evidence = (
+            f"no sample of the sample sheet is a column name, and the matrix has {n_rows} "
+            f"rows but {n_columns} columns, while the sheet lists {len(sheet)} samples"
+        )
+    else:
         return
-    missing = np.isnan(values)
-    if missing.any():
-        raise GloamError(
-            f"the counts matrix has missing values ({_examples(genes, samples, missing)}); "
-            "counts of unobserved genes are 0, so fix the file, or set value_type 'log' if "
-            "the values are already on a log scale"
-        )
-    negative = values < 0
-    if negative.any():
-        raise GloamError(
-            f"the counts matrix has negative values ({_examples(genes, samples, negative)}); "
-            "counts are >= 0 — set value_type 'log' if the values are already on a log scale"
-        )
-    fractional = np.abs(values - np.round(values)) > _INTEGER_TOLERANCE
-    if fractional.any():
-        warnings.warn(
-            f"the counts matrix has {int(fractional.sum())} non-integer values "
-            f"({_examples(genes, samples, fractional)}); continuing, as estimated counts can "
-            "be fractional — set value_type 'log' if the values are already on a log scale",
-            GloamWarning,
-            stacklevel=3,
-        )
+    raise GloamError(
+        f"the matrix looks transposed: {evidence}; put genes in rows and samples in columns "
+        "(first column gene IDs, header line sample names)"
+    )
 
 
 def _match_samples(matrix: pd.DataFrame, sheet: pd.DataFrame) -> pd.DataFrame:
@@ -691,6 +713,7 @@ def _match_samples(matrix: pd.DataFrame, sheet: pd.DataFrame) -> pd.DataFrame:
     in_matrix = set(matrix.columns)
     absent = [sample for sample in sheet["sample"] if sample not in in_matrix]
     if absent:
+        _check_not_transposed(matrix, sheet, absent)
         raise GloamError(
             f"{len(absent)} sample(s) of the sample sheet are not columns of the matrix: "
             f"{absent[:5]}{' ...' if len(absent) > 5 else ''}; fix the names or remove those "
@@ -855,7 +878,10 @@ def prepare_expression(
     Warns
     -----
     GloamWarning
-        Non-integer counts; matrix columns not in the sample sheet.
+        Values that do not look like ``value_type`` (raw counts declared ``log``, log
+        values declared ``counts``, non-integer counts; :func:`gloam.sanity.check_value_scale`);
+        a sample dominated by one gene's count, or with a size factor far from the others
+        (:func:`gloam.sanity.check_libraries`); matrix columns not in the sample sheet.
 
     References
     ----------
@@ -875,7 +901,15 @@ def prepare_expression(
     sheet = _match_samples(matrix, sheet)
     raw_all = matrix.loc[:, sheet["sample"].to_list()]
     values_all = raw_all.to_numpy(dtype=np.float64)
-    _validate_values(values_all, genes, sheet["sample"].to_numpy(dtype=object), settings.value_type)
+    # Later passes of the size-factor re-estimation see the same values: warn once.
+    first_pass = _pass == 1
+    _validate_values(
+        values_all,
+        genes,
+        sheet["sample"].to_numpy(dtype=object),
+        settings.value_type,
+        check_scale=first_pass,
+    )
 
     conditions = _select_conditions(sheet, settings)
     used, columns, group_of_sample = _layout(sheet, conditions)
@@ -897,11 +931,23 @@ def prepare_expression(
                 f"sample(s) {sheet['sample'][empty].tolist()[:5]} have no counts at all; "
                 "remove them from the sample sheet"
             )
+        size_factors = (
+            median_of_ratios_size_factors(values_all, _reference_genes)
+            if settings.normalisation == "median_ratio"
+            else None
+        )
+        if first_pass:
+            check_libraries(
+                values_all,
+                genes,
+                sheet["sample"].to_numpy(dtype=object),
+                settings.normalisation,
+                size_factors=size_factors,
+            )
         cpm = counts_per_million(values_all)
         if settings.normalisation == "cpm":
             scaled = cpm
-        elif settings.normalisation == "median_ratio":
-            size_factors = median_of_ratios_size_factors(values_all, _reference_genes)
+        elif size_factors is not None:
             scaled = values_all / size_factors
             used["size_factor"] = size_factors[used_positions]
         else:

@@ -11,8 +11,8 @@ truth table in the layouts the workflow reads, in several kinds:
     rhythms), and a candidate is kept only when it is visible at the sampled times
     and its z-scored correlation with every shape kept before is at most
     :data:`MAX_SHAPE_CORRELATION`.  Each planted gene follows one shape, warped a
-    little in time (its own small jitter) and scaled to its own amplitude; a share
-    of genes is flat (no time effect at all).
+    little in time (its own small jitter; a phase shift for daily rhythms) and scaled
+    to its own amplitude; a share of genes is flat (no time effect at all).
 ``gaussian``
     No clusters: every changing gene's log2 profile is one draw from a single
     multivariate Gaussian whose covariance is a squared-exponential kernel over
@@ -149,6 +149,9 @@ class _Shape:
 
     description: str
     function: Callable[[np.ndarray], np.ndarray]
+    #: Period (hours) of an undamped rhythm: its genes' jitter is a phase shift, see
+    #: :func:`_planted_profiles`.
+    period: float | None = None
 
 
 def _pulse(peak: float, sharpness: float, sign: float) -> Callable[[np.ndarray], np.ndarray]:
@@ -215,7 +218,9 @@ def _candidate(tau: np.ndarray, rng: np.random.Generator, family: int) -> _Shape
     if span < 24.0:
         return None
     peak = rng.uniform(0.0, 24.0)
-    return _Shape(f"daily rhythm (24 h period) peaking at {peak:.3g} h", _rhythm(24.0, peak))
+    return _Shape(
+        f"daily rhythm (24 h period) peaking at {peak:.3g} h", _rhythm(24.0, peak), period=24.0
+    )
 
 
 _N_FAMILIES = 6
@@ -398,13 +403,24 @@ def _planted_profiles(
     amplitude: np.ndarray,
     tau: np.ndarray,
 ) -> np.ndarray:
-    """log2 profiles (n_genes, n_timepoints): each gene's own warped shape times its amplitude."""
+    """log2 profiles (n_genes, n_timepoints): each gene's own warped shape times its amplitude.
+
+    A gene's warp ``w`` rescales time (``f(w * tau)``), which moves a pulse, dip or step by the
+    same share of its own time.  For an undamped rhythm a rescaled time is a different period,
+    and the genes of one response would drift out of phase cycle after cycle (by 48 h, several
+    hours apart: a continuum, not one response); there the jitter is a phase shift of
+    ``(w - 1) * period / 2`` instead, the same in every cycle.
+    """
     profiles = np.zeros((labels.size, tau.size))
     for index, shape in enumerate(shapes):  # a loop over the few shapes, not over genes
         rows = labels == f"R{index + 1}"
         if not rows.any():
             continue
-        values = _relative(shape.function, warp[rows, None] * tau[None, :])
+        if shape.period is None:
+            values = _relative(shape.function, warp[rows, None] * tau[None, :])
+        else:
+            shift = (warp[rows, None] - 1.0) * shape.period / 2.0
+            values = shape.function(tau[None, :] + shift) - shape.function(shift)
         peak = np.abs(values).max(axis=1, keepdims=True)
         profiles[rows] = amplitude[rows, None] * values / np.where(peak > 0, peak, 1.0)
     return profiles
@@ -643,4 +659,106 @@ def simulate_experiment(
         n_planted=len(names),
         value_type=value_type,
         shapes=shape_table,
+    )
+
+
+# ------------------------------------------------------------- two conditions, switching
+
+__all__ += ["SWITCH_KINDS", "simulate_switching"]
+
+#: Values of the truth column ``change`` of :func:`simulate_switching`.
+SWITCH_KINDS: tuple[str, ...] = ("none", "other_response", "lost_response")
+
+
+def simulate_switching(
+    *,
+    n_genes: int = 2000,
+    n_responses: int = 5,
+    switch_share: float = 0.1,
+    flat_share: float = 0.3,
+    amplitude_log2: tuple[float, float] = (1.5, 3.0),
+    times: Sequence[float] | np.ndarray | None = None,
+    n_replicates: int = 3,
+    value_type: str = "counts",
+    dispersion: float = 0.1,
+    log_noise_sd: float = 0.3,
+    null: bool = False,
+    seed: int = 0,
+) -> SimulatedExperiment:
+    """Two conditions with replicates, where a known set of genes changes its response.
+
+    Conditions ``wt`` and ``mut`` (:data:`CONDITIONS`) are sampled at the same times, with
+    ``n_replicates`` replicates each.  Planted genes follow one of ``n_responses`` distinct
+    shapes in ``wt`` (:func:`simulate_experiment`, kind ``responses``); a share
+    ``switch_share`` of them follows another planted shape, or none, in ``mut``.  Every
+    other gene has the same expected log2 profile in both conditions, so a condition x
+    time interaction exists exactly for the switched genes.
+
+    Parameters
+    ----------
+    n_genes, n_responses, flat_share, amplitude_log2, times, value_type, dispersion,
+    log_noise_sd, seed
+        As in :func:`simulate_experiment`.
+    switch_share : float
+        Share of the planted genes whose response changes, in (0, 1] (ignored with
+        ``null``).
+    n_replicates : int
+        Replicates per condition and time point, >= 2 (a test of the interaction needs
+        them).
+    null : bool
+        No gene changes (every expected profile is the same in both conditions): data to
+        check that a test of the interaction keeps its false discoveries at the level.
+
+    Returns
+    -------
+    SimulatedExperiment
+        As :func:`simulate_experiment` with two conditions; the truth table also has
+        ``changed`` (bool: the expected profiles differ between the conditions, the same as
+        ``switched``) and ``change``, one of :data:`SWITCH_KINDS`: ``none``,
+        ``other_response`` (another planted shape in ``mut``) or ``lost_response`` (flat in
+        ``mut``).
+
+    Raises
+    ------
+    GloamError
+        A setting out of range (as :func:`simulate_experiment`), fewer than 2 replicates, or
+        ``switch_share`` not in (0, 1] without ``null``.
+    """
+    if n_replicates < 2:
+        raise GloamError(
+            f"simulate_switching needs n_replicates >= 2 (replicates make the interaction "
+            f"testable), got {n_replicates}"
+        )
+    if not null and not 0.0 < switch_share <= 1.0:
+        raise GloamError(
+            f"simulate_switching switch_share must be in (0, 1] (or use null=True), got "
+            f"{switch_share}"
+        )
+    experiment = simulate_experiment(
+        kind="responses",
+        n_genes=n_genes,
+        n_responses=n_responses,
+        flat_share=flat_share,
+        amplitude_log2=amplitude_log2,
+        times=times,
+        n_replicates=n_replicates,
+        value_type=value_type,
+        n_conditions=2,
+        switch_share=0.0 if null else switch_share,
+        dispersion=dispersion,
+        log_noise_sd=log_noise_sd,
+        seed=seed,
+    )
+    truth = experiment.truth.copy()
+    switched = truth["switched"].to_numpy(dtype=bool)
+    lost = switched & (truth["response_mut"].to_numpy(dtype=str) == "flat")
+    truth["changed"] = switched
+    truth["change"] = np.where(lost, "lost_response", np.where(switched, "other_response", "none"))
+    return SimulatedExperiment(
+        matrix=experiment.matrix,
+        samples=experiment.samples,
+        truth=truth,
+        n_planted=experiment.n_planted,
+        value_type=experiment.value_type,
+        shapes=experiment.shapes,
     )

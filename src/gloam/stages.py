@@ -34,9 +34,7 @@ import dataclasses
 import json
 import os
 import platform
-import shutil
 import sys
-import tempfile
 import traceback
 import warnings
 from collections.abc import Iterator, Mapping, Sequence
@@ -48,7 +46,7 @@ import numpy as np
 import pandas as pd
 
 from gloam.errors import GloamError, GloamWarning, show_warning
-from gloam.io import atomic_output, write_table
+from gloam.io import atomic_directory, atomic_output, read_npz_checked, write_table
 
 __all__ = [
     "rule_environment",
@@ -73,6 +71,7 @@ __all__ = [
     "export_tables",
     "export_gene_sets",
     "export_h5ad",
+    "time_point_categories",
     "export_results",
     "export_core_genes",
     "figure_profiles",
@@ -160,13 +159,9 @@ def _write_npz(path: PathLike, **arrays: Any) -> None:
 
 
 def _load_npz(path: PathLike, what: str) -> dict[str, np.ndarray]:
-    try:
-        with np.load(path, allow_pickle=False) as data:
-            return {key: data[key] for key in data.files}
-    except (OSError, ValueError) as error:
-        raise GloamError(
-            f"{what} {str(path)!r} cannot be read ({error}); rerun its step"
-        ) from error
+    """Every array of an intermediate ``.npz``; a damaged file is removed so a rerun remakes it
+    (:func:`gloam.io.read_npz_checked`)."""
+    return read_npz_checked(path, what)
 
 
 def _read_prepared(path: PathLike) -> tuple[pd.DataFrame, pd.DataFrame]:
@@ -673,6 +668,7 @@ def run_select(
         min_core_genes=int(options["min_core_genes"]),
         max_centroid_correlation=float(options["max_centroid_correlation"]),
         min_coherence=float(options["min_coherence"]),
+        separation_alpha=float(options["structure_alpha"]),
     )
     recommended = recommended_n_clusters(judged)
     if recommended > 1:
@@ -684,8 +680,8 @@ def run_select(
         )
     else:
         reason = (
-            "no scanned c gave clusters that are all robust, sizeable, distinct and coherent: "
-            "no clusters are recommended"
+            "no scanned c gave clusters that are all robust, sizeable, distinct, coherent and "
+            "separated: no clusters are recommended"
         )
     fixed = options["n_clusters"]
     if fixed == "auto":
@@ -742,6 +738,11 @@ def run_select(
                 "similar_centroids",
                 f"c = {used}: centroid correlation {row['max_centroid_correlation']:.2f}",
             )
+        if not bool(row["separated"]):
+            flag(
+                "unseparated_clusters",
+                f"c = {used}: nearest-pair p = {row['max_pair_p_value']:.2g}",
+            )
         consensus = consensus_arrays(read_scan(file_of[used], data.zscores.index), data)
     else:
         consensus = single_group_arrays(data)
@@ -765,6 +766,7 @@ def run_select(
                     "min_core_genes",
                     "max_centroid_correlation",
                     "min_coherence",
+                    "structure_alpha",
                 )
             },
             "flags": [name for name in QUALITY_FLAGS if name in details],
@@ -999,12 +1001,7 @@ def export_gene_sets(
         data["memberships"], index=genes, columns=data["cluster_names"].tolist()
     )
     noise = pd.Series(data["noise"], index=genes)
-    target = Path(out_dir)
-    target.parent.mkdir(parents=True, exist_ok=True)
-    staging = Path(
-        tempfile.mkdtemp(prefix=f".{target.name}.", suffix=".partial", dir=target.parent)
-    )
-    try:
+    with atomic_directory(out_dir) as staging:
         write_gene_sets(
             memberships,
             thresholds,
@@ -1014,13 +1011,6 @@ def export_gene_sets(
             noise=noise,
             core_sets=memberships.shape[1] > 1,
         )
-        staging.chmod(0o755)
-        if target.exists():
-            shutil.rmtree(target)
-        os.replace(staging, target)
-    finally:
-        if staging.exists():
-            shutil.rmtree(staging)
 
 
 def _versions() -> dict[str, str]:
@@ -1031,6 +1021,17 @@ def _versions() -> dict[str, str]:
         except metadata.PackageNotFoundError:
             continue
     return versions
+
+
+def time_point_categories(times: np.ndarray, unit: str) -> pd.Categorical:
+    """Time labels such as ``"0.5 h"`` as an ordered categorical, in time order.
+
+    Plotting and grouping tools then keep time order instead of sorting labels as text
+    (``"12 h"`` before ``"2 h"``). Repeated times (several conditions) share a category.
+    """
+    labels = [f"{np.format_float_positional(t, trim='-')} {unit}" for t in times]
+    order = sorted(set(zip(times.tolist(), labels, strict=True)))
+    return pd.Categorical(labels, categories=[label for _, label in order], ordered=True)
 
 
 def _h5ad_safe(value: Any) -> Any:
@@ -1059,6 +1060,8 @@ def export_h5ad(
         ``gloam_top_class`` (cluster name or ``noise``), ``gloam_top_membership``,
         ``gloam_noise``, ``gloam_resampled_top_share``, ``gloam_start_agreement`` and
         ``gloam_membership_<cluster>`` per cluster.
+    ``obs["time_point"]``
+        The time of each column as an ordered categorical (``"0.5 h"``, ...), in time order.
     ``varm["gloam_memberships"]``
         Memberships, n_genes x n_clusters (columns in ``uns["gloam"]["clusters"]``).
     ``varm["gloam_membership_low"]``, ``varm["gloam_membership_high"]``
@@ -1088,6 +1091,9 @@ def export_h5ad(
         data.var[f"{VAR_PREFIX}{column}"] = table[column].to_numpy()
     for k, name in enumerate(names):
         data.var[f"{VAR_PREFIX}membership_{name}"] = consensus["memberships"][:, k]
+    data.obs["time_point"] = time_point_categories(
+        data.obs["time"].to_numpy(dtype=float), str(settings.get("time_unit", "h"))
+    )
     data.varm[MEMBERSHIPS_VARM_KEY] = consensus["memberships"]
     data.varm[f"{MEMBERSHIPS_VARM_KEY[:-1]}_low"] = consensus["membership_low"]
     data.varm[f"{MEMBERSHIPS_VARM_KEY[:-1]}_high"] = consensus["membership_high"]

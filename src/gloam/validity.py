@@ -52,6 +52,7 @@ __all__ = [
     "judge_n_clusters",
     "recommended_n_clusters",
     "CRITERIA",
+    "SEPARATION_ALPHA",
     "VALIDITY_COLUMNS",
     "STABLE_JACCARD",
     "MIN_CORE_GENES",
@@ -72,7 +73,7 @@ VALIDITY_COLUMNS = (
 )
 
 #: The criteria every cluster of a c must meet, in the order they are reported.
-CRITERIA = ("structure", "robust", "sizeable", "distinct", "coherent")
+CRITERIA = ("structure", "robust", "sizeable", "distinct", "coherent", "separated")
 #: Mean resampling Jaccard at or above which a cluster counts as stable (Hennig 2007 calls
 #: clusters with values of 0.75 or more stable; the level is from memory of that paper).
 STABLE_JACCARD = 0.75
@@ -86,6 +87,9 @@ MAX_CENTROID_CORRELATION = 0.85
 #: squared centroid norm; :func:`gloam.partition.centroid_coherence`) of a cluster that is a
 #: shared response rather than genes gathered near the flat profile (gloam's convention).
 MIN_COHERENCE = 0.5
+#: Level of the nearest-pair separation tests (Bonferroni-corrected over the pairs of one c),
+#: the same as the structure test's default level.
+SEPARATION_ALPHA = 0.01
 
 
 def _as_memberships(U: np.ndarray) -> np.ndarray:
@@ -395,6 +399,7 @@ def judge_n_clusters(
     min_core_genes: int = MIN_CORE_GENES,
     max_centroid_correlation: float = MAX_CENTROID_CORRELATION,
     min_coherence: float = MIN_COHERENCE,
+    separation_alpha: float = SEPARATION_ALPHA,
 ) -> pd.DataFrame:
     """Judge every scanned c on its own merits and recommend one.
 
@@ -416,6 +421,14 @@ def judge_n_clusters(
         profiles of its genes, :func:`gloam.partition.centroid_coherence`) is at least
         ``min_coherence``. Without it, genes that fit no response can gather into a robust
         cluster around the flat profile.
+    ``separated``
+        Every cluster is split from its most similar neighbour: the pooled core genes of the
+        two show more two-cluster structure than one Gaussian (``max_pair_p_value`` below
+        ``separation_alpha``; :func:`gloam.structure.nearest_pair_separation`, after Liu et
+        al. 2008 and Kimes et al. 2017). Without it, one response whose genes vary
+        continuously (a timing jitter) can be cut in two robust, distinct-looking halves.
+        A NaN p-value (not tested) does not fail it; a table without the column is read as
+        not tested.
 
     The recommendation is the **largest c that passes**; when none passes (or there is no
     structure) it is 1, meaning "no clusters the data support". The judgement of each c reads
@@ -431,7 +444,7 @@ def judge_n_clusters(
         :func:`gloam.partition.solve_partition`).
     structure_present : bool
         Verdict of the structure test.
-    stable_jaccard, min_core_genes, max_centroid_correlation, min_coherence
+    stable_jaccard, min_core_genes, max_centroid_correlation, min_coherence, separation_alpha
         Thresholds of the criteria.
 
     Returns
@@ -482,6 +495,10 @@ def judge_n_clusters(
     judged["distinct"] = ~(correlation > max_centroid_correlation)
     coherence = judged["min_coherence"].to_numpy(dtype=float)
     judged["coherent"] = np.nan_to_num(coherence, nan=-1.0) >= min_coherence
+    if "max_pair_p_value" not in judged.columns:
+        judged["max_pair_p_value"] = np.nan
+    pair_p = judged["max_pair_p_value"].to_numpy(dtype=float)
+    judged["separated"] = ~(pair_p >= separation_alpha)
     passed = judged[list(CRITERIA)].to_numpy(dtype=bool)
     judged["passes"] = passed.all(axis=1)
     judged["failed"] = [
@@ -516,12 +533,17 @@ def judge_n_clusters(
                 f"a cluster's genes barely agree (coherence {coherence[i]:.2f} < "
                 f"{min_coherence:g}): it gathers genes near the flat profile"
             )
+        if not row["separated"]:
+            problems.append(
+                f"a cluster and its nearest neighbour look like one cut response (p = "
+                f"{pair_p[i]:.2g} >= {separation_alpha:g} against one Gaussian)"
+            )
         if problems:
             reasons.append("fails: " + "; ".join(problems))
         elif c == recommended:
             reasons.append(
-                "largest c whose clusters are all robust under resampling, sizeable, distinct "
-                "and coherent"
+                "largest c whose clusters are all robust under resampling, sizeable, distinct, "
+                "coherent and separated from their nearest neighbour"
             )
         else:
             reasons.append(f"passes every criterion, but the larger c = {recommended} passes too")
