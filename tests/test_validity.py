@@ -303,6 +303,21 @@ def test_coherence_is_the_mean_pairwise_correlation_of_the_members():
     assert_allclose(centroid_coherence(X, X.mean(0, keepdims=True))[0], expected, rtol=1e-12)
 
 
+def test_a_cut_through_one_response_fails_separation():
+    """The nearest-pair test (SigClust, Liu et al. 2008, on each merge as in Kimes et al. 2017)
+    finds no two-cluster structure in the pair at c = 3: that c fails ``separated``; a
+    missing (NaN) p-value is not a failure."""
+    table = _criteria_table([2, 3, 4], [0.9, 0.9, 0.9], [100, 100, 100], [0.1, 0.6, 0.6])
+    table["max_pair_p_value"] = [1e-9, 0.3, np.nan]
+    judged = judge_n_clusters(table, structure_present=True)
+    assert judged["separated"].tolist() == [True, False, True]
+    assert judged.loc[1, "failed"] == "separated"
+    assert "one cut response (p = 0.3" in judged.loc[1, "reason"]
+    assert recommended_n_clusters(judged) == 4
+    # The level is the caller's: at 0.5 the pair at p = 0.3 counts as separated.
+    assert judge_n_clusters(table, structure_present=True, separation_alpha=0.5)["passes"].all()
+
+
 def test_no_passing_c_recommends_one():
     judged = judge_n_clusters(
         _criteria_table([2, 3], [0.5, 0.4], [500, 500], [0.0, 0.0]), structure_present=True
