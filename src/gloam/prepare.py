@@ -62,6 +62,7 @@ __all__ = [
     "read_prepared_replicates",
     "counts_per_million",
     "median_of_ratios_size_factors",
+    "INTERACTION_COLUMNS",
     "log_transform",
     "interpolate_over_time",
     "fill_missing",
@@ -347,7 +348,7 @@ class PreparedData:
     raw : DataFrame of shape (n_input_genes, n_used_samples)
         Input values as read, for the samples used (all samples of the selected
         condition(s), in sample-sheet order).
-    gene_report : DataFrame of shape (n_input_genes, 11)
+    gene_report : DataFrame of shape (n_input_genes, 11 or more)
         One row per input gene, in input order; columns ``gene``, ``status`` (``kept`` or
         one of :data:`DROP_REASONS`), ``n_missing``, ``n_filled``, ``n_samples_expressed``
         (NA when the expression filter is off), ``mean_log`` (mean log value over the used
@@ -355,7 +356,11 @@ class PreparedData:
         ``log2_range`` (largest range of the mean log2 profile within a condition),
         ``response_statistic``, ``response_p_value``, ``response_fdr`` (moderated F-test of
         change over time; NA without replicates, with ``gene_selection="all"`` or when the
-        gene was dropped before the test).
+        gene was dropped before the test). With several conditions and replicates also
+        :data:`INTERACTION_COLUMNS` (condition x time interaction, moderated F and BH FDR;
+        ``interaction_effect_log2`` is the largest difference between the conditions'
+        mean-centred log2 profiles) and, per condition ``<c>``, ``mean_log2_<c>``,
+        ``log2_range_<c>`` and ``peak_time_<c>``.
     summary : DataFrame of shape (len(DROP_REASONS) + 1, 2)
         Columns ``reason`` and ``n_genes``: every drop reason in step order, then ``kept``;
         ``n_genes`` sums to the number of input genes.
@@ -1085,6 +1090,11 @@ def prepare_expression(
                 f"{int(np.count_nonzero(previous))} genes the previous pass did not find "
                 f"changing (FDR >= {DEGES_FDR}; Kadota et al. 2012)",
             )
+    if columns["condition"].nunique() > 1 and selection_method == "moderated_f":
+        gene_report, note = _add_interaction_test(
+            gene_report, log_values, group_of_sample, columns, genes, mean_log, settings
+        )
+        selection_notes = (*selection_notes, note)
     return PreparedData(
         zscores=pd.DataFrame(zscores, index=kept_genes, columns=columns.index),
         columns=columns,
@@ -1100,6 +1110,76 @@ def prepare_expression(
         selection_method=selection_method,
         selection_notes=tuple(selection_notes),
     )
+
+
+#: Columns the condition x time interaction test adds to the gene report (several conditions
+#: with replicates): the moderated F statistic, its p-value and BH FDR, and the effect size.
+INTERACTION_COLUMNS = (
+    "interaction_statistic",
+    "interaction_p_value",
+    "interaction_fdr",
+    "interaction_effect_log2",
+)
+
+
+def _add_interaction_test(
+    gene_report: pd.DataFrame,
+    log_values: np.ndarray,
+    group_of_sample: np.ndarray,
+    columns: pd.DataFrame,
+    genes: np.ndarray,
+    mean_log: np.ndarray,
+    settings: PrepareSettings,
+) -> tuple[pd.DataFrame, str]:
+    """Add the condition x time interaction test of every gene that reached the time test.
+
+    The genes tested are the same as for the change over time (those that passed the
+    missing-value and expression filters and are not constant), so the prior of the moderated
+    variances is not estimated from selected genes only. Per-condition effect sizes
+    (``mean_log2_<c>``, ``log2_range_<c>``, ``peak_time_<c>``) come with it. Conditions
+    without shared time points, or no replicates, skip the test with a note.
+    """
+    from gloam.compare import interaction_test
+
+    tested = np.flatnonzero(gene_report["response_p_value"].notna().to_numpy())
+    if tested.size < 2:
+        return gene_report, "condition x time interaction: fewer than 2 genes to test"
+    try:
+        result = interaction_test(
+            log_values[tested],
+            group_of_sample,
+            columns["condition"].to_numpy(dtype=object),
+            columns["time"].to_numpy(dtype=np.float64),
+            genes=genes[tested],
+            fdr=settings.fdr,
+            trend=settings.value_type == "counts",
+            mean_expression=mean_log[tested],
+        )
+    except GloamError as error:
+        return gene_report, f"condition x time interaction not tested: {error}"
+    table = result.table
+    report = gene_report.copy()
+    sources = {
+        "interaction_statistic": "statistic",
+        "interaction_p_value": "p_value",
+        "interaction_fdr": "fdr",
+        "interaction_effect_log2": "effect_log2",
+    }
+    extra = [
+        name
+        for name in table.columns
+        if name.startswith(("mean_log2_", "log2_range_", "peak_time_"))
+    ]
+    for target, source in [*sources.items(), *((name, name) for name in extra)]:
+        values = np.full(len(report), np.nan)
+        values[tested] = table[source].to_numpy(dtype=float)
+        report[target] = values
+    n_significant = int((table["fdr"] <= settings.fdr).sum())
+    note = (
+        f"condition x time interaction (moderated F, Smyth 2004; BH FDR): {n_significant} of "
+        f"{tested.size} genes respond differently between conditions at FDR {settings.fdr:g}"
+    )
+    return report, note
 
 
 def _unchanged_reference(
@@ -1179,6 +1259,9 @@ def _to_anndata(prepared: PreparedData):  # -> anndata.AnnData (imported lazily)
     var = pd.DataFrame(index=prepared.zscores.index.astype(str))
     for column in ("n_missing", "n_filled", "mean_log", "sd", "log2_range", "response_fdr"):
         var[f"{VAR_PREFIX}{column}"] = report[column].to_numpy()
+    for column in ("interaction_fdr", "interaction_effect_log2"):
+        if column in report.columns:
+            var[f"{VAR_PREFIX}{column}"] = report[column].to_numpy()
     var[f"{VAR_PREFIX}n_samples_expressed"] = (
         report["n_samples_expressed"].astype("float64").to_numpy()
     )
