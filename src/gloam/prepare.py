@@ -360,7 +360,8 @@ class PreparedData:
         :data:`INTERACTION_COLUMNS` (condition x time interaction, moderated F and BH FDR;
         ``interaction_effect_log2`` is the largest difference between the conditions'
         mean-centred log2 profiles) and, per condition ``<c>``, ``mean_log2_<c>``,
-        ``log2_range_<c>`` and ``peak_time_<c>``.
+        ``log2_range_<c>``, ``peak_time_<c>`` and ``time_fdr_<c>`` (change over time within
+        that condition alone).
     summary : DataFrame of shape (len(DROP_REASONS) + 1, 2)
         Columns ``reason`` and ``n_genes``: every drop reason in step order, then ``kept``;
         ``n_genes`` sums to the number of input genes.
@@ -1168,7 +1169,7 @@ def _add_interaction_test(
     extra = [
         name
         for name in table.columns
-        if name.startswith(("mean_log2_", "log2_range_", "peak_time_"))
+        if name.startswith(("mean_log2_", "log2_range_", "peak_time_", "time_fdr_"))
     ]
     for target, source in [*sources.items(), *((name, name) for name in extra)]:
         values = np.full(len(report), np.nan)

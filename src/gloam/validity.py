@@ -30,6 +30,7 @@ References
 
 from __future__ import annotations
 
+import math
 from collections.abc import Mapping
 from typing import TYPE_CHECKING
 
@@ -519,7 +520,7 @@ def judge_n_clusters(
         if not row["robust"]:
             problems.append(
                 f"a cluster dissolves under resampling (smallest mean Jaccard "
-                f"{jaccard[i]:.2f} < {stable_jaccard:g})"
+                f"{_below(jaccard[i])} < {stable_jaccard:g})"
             )
         if not row["sizeable"]:
             problems.append(f"a cluster has only {int(core[i])} core genes (< {min_core_genes})")
@@ -530,7 +531,7 @@ def judge_n_clusters(
             )
         if not row["coherent"]:
             problems.append(
-                f"a cluster's genes barely agree (coherence {coherence[i]:.2f} < "
+                f"a cluster's genes barely agree (coherence {_below(coherence[i])} < "
                 f"{min_coherence:g}): it gathers genes near the flat profile"
             )
         if not row["separated"]:
@@ -549,6 +550,12 @@ def judge_n_clusters(
             reasons.append(f"passes every criterion, but the larger c = {recommended} passes too")
     judged["reason"] = reasons
     return judged
+
+
+def _below(value: float) -> str:
+    """A value that failed a ``>=`` threshold, rounded down to 2 decimals so that it never
+    reads as the threshold itself (0.4999 shows as 0.49, not 0.50)."""
+    return f"{math.floor(value * 100) / 100:.2f}" if np.isfinite(value) else "n/a"
 
 
 def recommended_n_clusters(judged: pd.DataFrame) -> int:
