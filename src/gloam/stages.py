@@ -78,6 +78,9 @@ __all__ = [
     "figure_validity",
     "figure_fuzzifier",
     "figure_overview",
+    "run_comparison",
+    "COMPARISON_FILES",
+    "TRANSITION_COLUMNS",
     "summarise_runs",
     "RESULT_KEY",
     "VAR_PREFIX",
@@ -1342,3 +1345,273 @@ def summarise_runs(
             file=sys.stderr,
         )
     write_table(pd.DataFrame(rows), out_tsv)
+
+
+# ------------------------------------------------------------------ conditions compared
+
+#: Files a comparison of conditions writes into its folder (see :func:`run_comparison`).
+COMPARISON_FILES = (
+    "responses.tsv",
+    "transitions.tsv",
+    "centroids.tsv",
+    "validity.tsv",
+    "selection.json",
+)
+#: Columns of ``transitions.tsv``.
+TRANSITION_COLUMNS = (
+    "condition_a",
+    "response_a",
+    "condition_b",
+    "response_b",
+    "n_genes",
+    "n_changed",
+)
+
+
+def _condition_test(prepared: PathLike, gene_report: PathLike, fdr: float) -> Any:
+    """The interaction test of the prepared genes, from the preparation's gene report."""
+    import anndata
+
+    from gloam.compare import InteractionTest, condition_profiles
+    from gloam.prepare import LOG_MEAN_LAYER
+
+    data = anndata.read_h5ad(prepared)
+    genes = pd.Index(np.asarray(data.var_names, dtype=str), name="gene")
+    conditions = list(dict.fromkeys(data.obs["condition"].astype(str)))
+    if len(conditions) < 2:
+        raise GloamError(
+            f"comparing conditions needs at least two, and {str(prepared)!r} has "
+            f"{conditions}; prepare the dataset with conditions: concatenate"
+        )
+    report = pd.read_csv(gene_report, sep="\t", dtype={"gene": str}, float_precision="round_trip")
+    report = report.set_index("gene")
+    if "interaction_fdr" not in report.columns:
+        raise GloamError(
+            "the gene report has no condition x time interaction test; it needs replicates in "
+            "every condition and the same time points in each (see prepared/summary notes)"
+        )
+    report = report.reindex(genes)
+    log_means = np.asarray(data.layers[LOG_MEAN_LAYER], dtype=np.float64).T
+    profiles = condition_profiles(
+        log_means,
+        data.obs["condition"].astype(str).to_numpy(),
+        data.obs["time"].to_numpy(dtype=np.float64),
+        genes=genes,
+    )
+    adjusted = report["interaction_fdr"].to_numpy(dtype=float)
+    table = pd.DataFrame(
+        {
+            "fdr": adjusted,
+            "significant": adjusted <= fdr,
+            "effect_log2": report["interaction_effect_log2"].to_numpy(dtype=float),
+            **{
+                f"time_fdr_{c}": report[f"time_fdr_{c}"].to_numpy(dtype=float)
+                for c in profiles.conditions
+            },
+        },
+        index=genes,
+    )
+    extra = [
+        name
+        for name in report.columns
+        if name.startswith(("mean_log2_", "log2_range_", "peak_time_"))
+    ]
+    test = InteractionTest(
+        table=table, profiles=profiles, fdr_level=fdr, df_prior=float("nan"), notes=[]
+    )
+    return test, report[extra]
+
+
+def run_comparison(
+    prepared: PathLike,
+    gene_report: PathLike,
+    scan_settings: Mapping[str, Any],
+    selection_settings: Mapping[str, Any],
+    cluster_numbers: Sequence[int],
+    seed: int,
+    *,
+    fdr: float,
+    min_log2_range: float,
+    prefix: str,
+    out_dir: PathLike,
+    figure: FigurePaths,
+) -> None:
+    """Compare the conditions of a run: shared responses, transitions and changed genes.
+
+    Every gene's mean profile in each condition, z-scored on its own, is one observation
+    (profiles that do not change in a condition are ``flat`` there: log2 range below
+    ``min_log2_range`` or change over time not significant at ``fdr``). The shared responses
+    are chosen as a run's clusters are: the changing gene-condition profiles are clustered at
+    every c of ``cluster_numbers`` (:func:`gloam.partition.solve_partition`, genes resampled
+    for robustness, m from Schwaemmle & Jensen 2010 for their size), tested for structure
+    and judged by :func:`gloam.validity.judge_n_clusters`; the largest c that passes is
+    used. Every gene-condition then gets memberships against those centroids
+    (:func:`gloam.compare.shared_responses`), and a gene has *changed* when its condition x
+    time interaction FDR (from the preparation) is at most ``fdr`` and its top response
+    differs between conditions (Gelman & Stern 2006: a difference is tested directly).
+
+    Writes into ``out_dir``: ``responses.tsv`` (``gene``, ``status``, ``changed``,
+    ``interaction_fdr``, ``interaction_effect_log2``, per condition ``<c>``:
+    ``response_<c>``, ``membership_<c>``, ``<c>_C1`` ... ``<c>_noise``, ``mean_log2_<c>``,
+    ``log2_range_<c>``, ``peak_time_<c>``), ``transitions.tsv`` (:data:`TRANSITION_COLUMNS`,
+    the first condition against each other one), ``centroids.tsv`` (shared responses x time
+    points, z-scores), ``validity.tsv`` (the judged scan), ``selection.json`` (c, m, reason,
+    structure test, conditions, counts by status, notes) and ``genesets/`` (a GMT of the
+    changed genes per pair and per transition, one list per set, ``background.txt``: every
+    gene compared); and the transitions figure (first pair) to ``figure``.
+    """
+    from gloam.compare import (
+        changed_gene_sets,
+        plot_transitions,
+        shared_responses,
+        transition_table,
+    )
+    from gloam.consensus import order_clusters_by_peak_time
+    from gloam.fuzzifier import schwaemmle_jensen_m
+    from gloam.io import write_gmt, write_lines
+    from gloam.partition import solve_partition
+    from gloam.plots import save_figure
+    from gloam.prepare import zscore_rows
+    from gloam.structure import structure_test
+    from gloam.validity import judge_n_clusters, recommended_n_clusters
+
+    selection = {**_SELECTION_DEFAULTS, **selection_settings}
+    scan = {**_SCAN_DEFAULTS, **scan_settings}
+    test, effects = _condition_test(prepared, gene_report, fdr)
+    profiles = test.profiles
+    cube = profiles.values
+    n_genes, n_conditions, n_times = cube.shape
+    time_fdr = np.column_stack(
+        [test.table[f"time_fdr_{c}"].to_numpy(dtype=float) for c in profiles.conditions]
+    )
+    flat = (np.ptp(cube, axis=2) < min_log2_range) | (~np.isnan(time_fdr) & (time_fdr > fdr))
+    changing, _, _ = zscore_rows(cube.reshape(-1, n_times)[~flat.ravel()])
+    n_rows = changing.shape[0]
+    numbers = sorted(int(c) for c in cluster_numbers if 2 <= int(c) < n_rows)
+    if n_rows < 10 or not numbers:
+        raise GloamError(
+            f"only {n_rows} gene-condition profiles change over time; comparing responses "
+            "needs at least 10 (and more than the smallest scanned c)"
+        )
+    m = schwaemmle_jensen_m(n_rows, n_times)
+    rows, centroids_at = [], {}
+    for c in numbers:
+        partition = solve_partition(
+            changing,
+            c,
+            m,
+            rng=np.random.default_rng([int(seed), 7, c]),
+            n_starts=int(scan["n_starts"]),
+            tol=float(scan["tol"]),
+            max_iter=int(scan["max_iter"]),
+            init=scan["init"],
+            precision=scan["precision"],
+            min_starts_at_optimum=int(scan["min_starts_at_optimum"]),
+            max_starts=int(scan["max_starts"]),
+            noise_class=bool(scan["noise_class"]),
+            n_resamples=int(scan["n_resamples"]),
+        )
+        rows.append(partition.metrics)
+        centroids_at[c] = partition.centroids
+    structure = structure_test(
+        changing,
+        m,
+        n_null=int(selection["structure_n_null"]),
+        alpha=float(selection["structure_alpha"]),
+        rng=np.random.default_rng([int(seed), 8]),
+    )
+    judged = judge_n_clusters(
+        pd.DataFrame(rows),
+        structure_present=structure.present,
+        stable_jaccard=float(selection["stable_jaccard"]),
+        min_core_genes=int(selection["min_core_genes"]),
+        max_centroid_correlation=float(selection["max_centroid_correlation"]),
+        min_coherence=float(selection["min_coherence"]),
+        separation_alpha=float(selection["structure_alpha"]),
+    )
+    chosen = recommended_n_clusters(judged)
+    judged["used"] = judged["n_clusters"] == chosen
+    if chosen < 2:
+        reason = (
+            "the changing gene-condition profiles show no responses that pass the criteria "
+            f"(structure p = {structure.p_value:.3g}); no shared responses to compare"
+        )
+        raise GloamError(
+            f"conditions cannot be compared for {prefix!r}: {reason}; the interaction test "
+            "is still in prepared/gene_report.tsv"
+        )
+    reason = str(judged.loc[judged["recommended"], "reason"].iloc[0])
+    centroids = centroids_at[chosen]
+    centroids = centroids[order_clusters_by_peak_time(centroids, profiles.times, None)]
+    shared = shared_responses(
+        test,
+        centroids=centroids,
+        m=m,
+        noise="flat_profile" if bool(scan["noise_class"]) else "none",
+        min_log2_range=min_log2_range,
+        fdr=fdr,
+    )
+    responses = shared.table.copy()
+    responses.insert(2, "interaction_effect_log2", test.table["effect_log2"])
+    responses = responses.join(effects)
+    responses.index.name = "gene"
+    first = profiles.conditions[0]
+    transitions = []
+    gene_sets: dict[str, tuple[str, list[str]]] = {}
+    background: list[str] = []
+    for other in profiles.conditions[1:]:
+        everything = transition_table(shared, first, other)
+        changed = transition_table(shared, first, other, changed_only=True)
+        long = everything.stack().rename("n_genes").reset_index()
+        long.columns = ["response_a", "response_b", "n_genes"]
+        long["n_changed"] = changed.stack().to_numpy()
+        long.insert(0, "condition_a", first)
+        long.insert(2, "condition_b", other)
+        transitions.append(long[list(TRANSITION_COLUMNS)])
+        sets, background = changed_gene_sets(shared, first, other, prefix=prefix)
+        gene_sets.update(sets)
+        if other == profiles.conditions[1]:
+            drawing = plot_transitions(
+                everything, changed, centroids=shared.centroids, times=shared.times, fdr=fdr
+            )
+            save_figure(drawing, *figure)
+    counts = responses["status"].value_counts()
+    out = Path(out_dir)
+    out.mkdir(parents=True, exist_ok=True)
+    write_table(responses.reset_index(), out / "responses.tsv")
+    write_table(pd.concat(transitions, ignore_index=True), out / "transitions.tsv")
+    centroid_table = pd.DataFrame(
+        shared.centroids,
+        index=pd.Index(shared.clusters, name="cluster"),
+        columns=[f"t{np.format_float_positional(t, trim='-')}" for t in shared.times],
+    )
+    write_table(centroid_table, out / "centroids.tsv", index=True)
+    write_table(judged, out / "validity.tsv")
+    with atomic_directory(out / "genesets") as staging:
+        write_gmt(gene_sets, staging / f"{prefix}_changed.gmt")
+        for name, (_, genes) in gene_sets.items():
+            write_lines(genes, staging / f"{name}.txt")
+        write_lines(background, staging / "background.txt")
+    _write_json(
+        {
+            "n_clusters": chosen,
+            "m": m,
+            "reason": reason,
+            "conditions": list(profiles.conditions),
+            "n_profiles_changing": n_rows,
+            "n_profiles_flat": int(flat.sum()),
+            "fdr": fdr,
+            "min_log2_range": min_log2_range,
+            "structure": structure.to_dict(),
+            "status_counts": {str(k): int(v) for k, v in counts.items()},
+            "notes": list(shared.notes),
+        },
+        out / "selection.json",
+    )
+    print(
+        f"gloam: conditions compared ({', '.join(profiles.conditions)}): {chosen} shared "
+        f"responses (m = {m:.3f}); "
+        + ", ".join(f"{k} {int(v)}" for k, v in counts.items())
+        + " genes",
+        file=sys.stderr,
+    )
