@@ -142,3 +142,22 @@ def test_cli_demo_bad_size_is_one_line_error(tmp_path, capsys):
     error = capsys.readouterr().err
     assert error.startswith("gloam: error:") and "n_genes" in error
     assert not list(tmp_path.iterdir())
+
+
+def test_mutant_line_switches_the_documented_shares_and_nothing_else():
+    from gloam.demo import MUTANT_CONDITION, MUTANT_SWITCHES
+
+    data = simulate_demo(seed=5, n_genes=1500, with_mutant=True)
+    assert set(data.samples["condition"]) == {"cold", MUTANT_CONDITION}
+    assert data.counts.shape[1] == 2 * len(DEMO_TIMES_HOURS) * 3
+    truth = data.truth
+    for source, target, share in MUTANT_SWITCHES:
+        members = truth["response"] == source
+        moved = members & (truth[f"response_{MUTANT_CONDITION}"] == target)
+        assert moved.sum() == round(share * members.sum())
+    assert truth["switched"].sum() == sum(
+        round(share * (truth["response"] == source).sum()) for source, _, share in MUTANT_SWITCHES
+    )
+    # Unswitched genes keep their label; flat genes in the wild type stay flat.
+    same = ~truth["switched"]
+    assert (truth.loc[same, "response"] == truth.loc[same, f"response_{MUTANT_CONDITION}"]).all()

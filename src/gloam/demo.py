@@ -17,6 +17,13 @@ genes do nothing; five groups of genes follow a planted temporal response:
 ``oscillating``
     a daily rhythm (24 h period) that keeps running in the cold.
 
+With ``with_mutant=True`` the same times are also sampled in an invented line lacking a
+cold-signalling regulator (condition ``frl1``; the wild type is ``cold``).  In that line
+a share of the planted genes responds differently: half of the ``late_sustained`` genes
+never rise (acclimation is lost), and a third of the ``early_transient`` genes are
+delayed into the ``mid_transient`` pulse; every other gene behaves as in the wild type.
+The truth table then has ``response_frl1`` and ``switched``.
+
 The remaining genes are ``flat`` (no change; only sampling noise) or
 ``unstructured`` (an independent random level at each time point, shared by the
 replicates), so a clustering has something to ignore.  Counts are drawn from a
@@ -38,6 +45,8 @@ from gloam.io import write_table
 
 __all__ = [
     "DEMO_TIMES_HOURS",
+    "MUTANT_CONDITION",
+    "MUTANT_SWITCHES",
     "PLANTED_RESPONSES",
     "DemoData",
     "response_profiles",
@@ -47,6 +56,15 @@ __all__ = [
 
 #: Sampling times of the demo (hours after the move to 4 °C); deliberately uneven.
 DEMO_TIMES_HOURS: tuple[float, ...] = (0.0, 0.5, 1.0, 2.0, 4.0, 6.0, 9.0, 12.0, 24.0, 48.0)
+
+#: Condition name of the invented mutant line (the wild type is ``cold``).
+MUTANT_CONDITION = "frl1"
+#: How the mutant line's responses differ: (wild-type response, mutant response, share of
+#: the wild-type response's genes that switch).
+MUTANT_SWITCHES: tuple[tuple[str, str, float], ...] = (
+    ("late_sustained", "flat", 0.5),
+    ("early_transient", "mid_transient", 1.0 / 3.0),
+)
 
 #: Names of the planted temporal responses, in the order used for the truth table.
 PLANTED_RESPONSES: tuple[str, ...] = (
@@ -125,6 +143,7 @@ def simulate_demo(
     planted_fraction: float = 0.5,
     flat_fraction: float = 0.3,
     times: tuple[float, ...] = DEMO_TIMES_HOURS,
+    with_mutant: bool = False,
 ) -> DemoData:
     """Simulate the cold-response demo experiment.
 
@@ -142,6 +161,9 @@ def simulate_demo(
         Share of genes with no change; the rest are ``unstructured``.
     times : tuple of float
         Sampling times in hours.
+    with_mutant : bool
+        Also sample the invented ``frl1`` line at the same times (see the module): the
+        genes whose response changes there are marked ``switched`` in the truth table.
 
     Returns
     -------
@@ -210,30 +232,51 @@ def simulate_demo(
     base_mean[planted] = np.exp(rng.normal(np.log(400.0), 0.8, planted.sum()))
     dispersion = (0.03 + 1.0 / base_mean) * np.exp(rng.normal(0.0, 0.3, n_genes))
 
+    conditions = [("cold", log2_fold, labels)]
+    if with_mutant:
+        mutant_labels = labels.copy()
+        for source, target, share in MUTANT_SWITCHES:
+            members = np.flatnonzero(labels == source)
+            moved = rng.choice(members, size=int(round(share * members.size)), replace=False)
+            mutant_labels[moved] = target
+        mutant_fold = log2_fold.copy()
+        switched = mutant_labels != labels
+        to_response = switched & np.isin(mutant_labels, PLANTED_RESPONSES)
+        targets = np.array([response_index[name] for name in mutant_labels[to_response]])
+        mutant_fold[to_response] = amplitude[to_response, None] * shapes[targets]
+        mutant_fold[switched & ~to_response] = 0.0
+        conditions.append((MUTANT_CONDITION, mutant_fold, mutant_labels))
+
     sample_time = np.repeat(time_array, n_replicates)
     sample_replicate = np.tile(np.arange(1, n_replicates + 1), n_times)
     time_of_sample = np.repeat(np.arange(n_times), n_replicates)
-    library_size = np.exp(rng.normal(0.0, 0.35, sample_time.size))
-
-    mean = base_mean[:, None] * np.exp2(log2_fold[:, time_of_sample]) * library_size[None, :]
     shape = 1.0 / dispersion[:, None]
-    counts = rng.poisson(rng.gamma(shape, mean / shape))
-
     width = len(str(n_genes))
     genes = [f"AH{i:0{width}d}" for i in range(1, n_genes + 1)]
-    names = [
-        f"cold_{_format_hours(t)}h_r{r}" for t, r in zip(sample_time, sample_replicate, strict=True)
-    ]
+    blocks, sheets = [], []
+    for condition, fold, _ in conditions:  # one or two conditions, not genes
+        library_size = np.exp(rng.normal(0.0, 0.35, sample_time.size))
+        mean = base_mean[:, None] * np.exp2(fold[:, time_of_sample]) * library_size[None, :]
+        blocks.append(rng.poisson(rng.gamma(shape, mean / shape)))
+        names = [
+            f"{condition}_{_format_hours(t)}h_r{r}"
+            for t, r in zip(sample_time, sample_replicate, strict=True)
+        ]
+        sheets.append(
+            pd.DataFrame(
+                {
+                    "sample": names,
+                    "time": sample_time,
+                    "replicate": sample_replicate,
+                    "condition": condition,
+                }
+            )
+        )
+    samples = pd.concat(sheets, ignore_index=True)
     counts_table = pd.DataFrame(
-        counts.astype(np.int64), index=pd.Index(genes, name="gene"), columns=names
-    )
-    samples = pd.DataFrame(
-        {
-            "sample": names,
-            "time": sample_time,
-            "replicate": sample_replicate,
-            "condition": "cold",
-        }
+        np.hstack(blocks).astype(np.int64),
+        index=pd.Index(genes, name="gene"),
+        columns=samples["sample"].to_list(),
     )
     truth = pd.DataFrame(
         {
@@ -243,6 +286,9 @@ def simulate_demo(
             "base_mean": base_mean,
         }
     )
+    if with_mutant:
+        truth[f"response_{MUTANT_CONDITION}"] = conditions[1][2].astype(str)
+        truth["switched"] = conditions[1][2] != labels
     return DemoData(counts=counts_table, samples=samples, truth=truth)
 
 
@@ -267,7 +313,8 @@ def write_demo(
     ``samples.tsv``
         ``sample``, ``time`` (hours), ``replicate``, ``condition``.
     ``truth.tsv``
-        ``gene``, ``response``, ``amplitude_log2``, ``base_mean`` (the planted answer).
+        ``gene``, ``response``, ``amplitude_log2``, ``base_mean`` (the planted answer; with
+        the mutant also ``response_frl1`` and ``switched``).
 
     Returns
     -------
