@@ -154,6 +154,29 @@ def big_case(n_genes: int, n_timepoints: int, n_clusters: int, n_starts: int, it
     )
 
 
+def primitive_ms(X: np.ndarray, U0: np.ndarray, m: float, repeats: int = 5) -> float:
+    """The limit: the two BLAS products and one power per membership entry, one thread.
+
+    Per iteration the engine must at least form ``[X, |x|^2, 1] [-2V, 1, |v|^2]^T``
+    (distances), ``(u^m)^T [X, 1]`` (centroid sums) and one power per entry; each is
+    timed alone here (best of ``repeats``), BLAS limited to one thread.
+    """
+    from threadpoolctl import threadpool_limits
+
+    n, d = X.shape
+    c = U0.shape[1]
+    rows = np.hstack([X, np.einsum("ij,ij->i", X, X)[:, None], np.ones((n, 1))])
+    weights = np.hstack([-2.0 * X[:c], np.ones((c, 1)), np.ones((c, 1))])
+    with_ones = np.hstack([X, np.ones((n, 1))])
+    ratio = 1.0 + np.random.default_rng(0).random((n, c))
+    out = np.empty((n, c))
+    with threadpool_limits(1, user_api="blas"):
+        _, distances = timed(lambda: rows @ weights.T, repeats)
+        _, sums = timed(lambda: U0.T @ with_ones, repeats)
+        _, power = timed(lambda: np.power(ratio, -1.0 / (m - 1.0), out=out), repeats)
+    return (distances + sums + power) * 1e3
+
+
 def environment_report() -> None:
     from threadpoolctl import threadpool_info
 
@@ -270,6 +293,20 @@ def main() -> None:
     for label, ms in rows:
         if not label.startswith("gloam precision='fast'"):
             print(f"  {label:<52} {ms / fast_ms:6.1f}x")
+
+    # The limit on one thread, against the engine on one thread (one start: one thread).
+    _, one_thread = timed(
+        lambda: fuzzy_cmeans(
+            X, c, m, initial_memberships=U0, tol=0, max_iter=iterations, n_threads=1
+        ),
+        repeats=3,
+    )
+    limit_ms = primitive_ms(X, U0, m)
+    print(
+        f"\nlimit (two BLAS products + one np.power per entry, 1 thread): {limit_ms:.3f} ms; "
+        f"gloam 'fast' on 1 thread {one_thread / iterations * 1e3:.3f} ms: "
+        f"{one_thread / iterations * 1e3 / limit_ms:.2f}x the limit"
+    )
 
     if not args.skip_big:
         n_big, d_big, c_big, s_big, it_big = big

@@ -265,3 +265,119 @@ def test_duplicate_rows_get_identical_memberships(n_distinct, copies, seed):
     U = result.memberships.reshape(2, n_distinct, copies, c)
     assert np.isfinite(U).all()
     assert_allclose(U, np.repeat(U[:, :, :1, :], copies, axis=2), atol=1e-12)
+
+
+# ---------------------------------------------------------------------------------------------
+# Pruning, the objective stop, threads and the order of the random draws
+# ---------------------------------------------------------------------------------------------
+
+
+def _blobs_with_poor_starts() -> np.ndarray:
+    """Well separated blobs (scikit-learn ``make_blobs``): random starts reach several local
+    optima, so some starts trail the best one by far."""
+    X, _ = make_blobs(n_samples=1500, centers=8, n_features=6, cluster_std=1.0, random_state=3)
+    return X
+
+
+@pytest.mark.parametrize("precision", ["fast", "float64"])
+def test_pruning_never_changes_the_best_start_bit_for_bit(precision):
+    X = _blobs_with_poor_starts()
+    n_pruned = 0
+    # The NumPy path is slower: two of the cases suffice there.
+    cases = [(6, 0), (8, 1), (8, 2), (10, 3)] if precision == "fast" else [(8, 1), (10, 3)]
+    for c, seed in cases:
+        kwargs = {"n_starts": 12, "tol": 1e-7, "max_iter": 300, "precision": precision}
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", ConvergenceWarning)
+            plain = fuzzy_cmeans(X, c, 1.6, rng=seed, **kwargs)
+            pruned = fuzzy_cmeans(X, c, 1.6, rng=seed, prune=True, **kwargs)
+        assert pruned.best_index == plain.best_index
+        best = plain.best_index
+        assert np.array_equal(pruned.memberships[best], plain.memberships[best])
+        assert np.array_equal(pruned.centroids[best], plain.centroids[best])
+        assert pruned.objectives[best] == plain.objectives[best]
+        assert pruned.n_iter[best] == plain.n_iter[best]
+        # Starts that go on are untouched too: every start not pruned equals its plain run.
+        kept = ~pruned.pruned
+        assert np.array_equal(pruned.memberships[kept], plain.memberships[kept])
+        assert not plain.pruned.any()
+        n_pruned += int(pruned.pruned.sum())
+    # The check above has teeth only if the rule prunes something on these data.
+    assert n_pruned > 0
+
+
+def test_pruned_starts_are_flagged_never_converged_and_keep_a_consistent_last_iterate():
+    """The objective of a pruned start is J_m (Bezdek 1981) of its returned pair."""
+    X = _blobs_with_poor_starts()
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", ConvergenceWarning)
+        result = fuzzy_cmeans(X, 8, 1.6, n_starts=12, rng=1, tol=1e-7, prune=True)
+    assert result.pruned.any()
+    assert not (result.pruned & result.converged).any()
+    assert not result.pruned[result.best_index]
+    for index in np.flatnonzero(result.pruned):
+        part = result.start(index)
+        assert part.pruned and not part.converged
+        assert part.objective == pytest.approx(
+            objective(X, part.centroids, part.memberships, 1.6), rel=1e-10
+        )
+        # A pruned start trailed the best by more than the margin when it was stopped.
+        assert part.objective > result.objectives[result.best_index] * (1 + 0.01)
+        assert_allclose(part.memberships.sum(axis=1), 1.0, atol=1e-12)
+
+
+@pytest.mark.parametrize("precision", ["fast", "float64"])
+def test_thread_counts_give_the_results_of_one_thread(precision):
+    rng = np.random.default_rng(4)
+    X = rng.normal(size=(3000, 7))
+    kwargs = {"n_starts": 5, "rng": 9, "tol": 1e-6, "max_iter": 200, "precision": precision}
+    one = fuzzy_cmeans(X, 6, 1.5, n_threads=1, **kwargs)
+    for threads in (2, 3):
+        many = fuzzy_cmeans(X, 6, 1.5, n_threads=threads, **kwargs)
+        assert_allclose(many.memberships, one.memberships, rtol=0, atol=1e-12)
+        assert_allclose(many.centroids, one.centroids, rtol=0, atol=1e-12)
+        assert_allclose(many.objectives, one.objectives, rtol=1e-12)
+        assert np.array_equal(many.n_iter, one.n_iter)
+
+
+def test_random_starts_are_the_documented_draws_in_order():
+    """n_starts random starts equal ``random_memberships`` drawn from the same seed."""
+    X = np.random.default_rng(0).normal(size=(400, 5))
+    drawn = fuzzy_cmeans(X, 4, 1.8, n_starts=3, rng=12, tol=0, max_iter=40)
+    starts = random_memberships(3, 400, 4, rng=np.random.default_rng(12))
+    given_starts = fuzzy_cmeans(X, 4, 1.8, initial_memberships=starts, tol=0, max_iter=40)
+    assert np.array_equal(drawn.memberships, given_starts.memberships)
+
+
+def test_objective_stop_stops_at_the_first_small_relative_decrease():
+    """Common practice: stop when J_{t-1} - J_t <= objective_tol * J_t.  The objectives of
+    the iterations before the stop come from runs with fewer iterations (same start)."""
+    rng = np.random.default_rng(6)
+    X = rng.normal(size=(600, 4))
+    U0 = _random_start(600, 5, seed=2)
+    stopped = fuzzy_cmeans(X, 5, 2.0, initial_memberships=U0, tol=0, objective_tol=1e-6)
+    t = int(stopped.n_iter[0])
+    assert stopped.converged[0] and 2 < t < 500
+
+    def J(k):
+        return fuzzy_cmeans(X, 5, 2.0, initial_memberships=U0, tol=0, max_iter=k).objectives[0]
+
+    assert stopped.objectives[0] == J(t)
+    assert J(t - 1) - J(t) <= 1e-6 * J(t)
+    assert J(t - 2) - J(t - 1) > 1e-6 * J(t - 1)
+
+
+@pytest.mark.parametrize(
+    ("kwargs", "message"),
+    [
+        ({"objective_tol": -1e-3}, "objective_tol must be"),
+        ({"prune": "yes"}, "prune must be True or False"),
+        ({"prune_margin": 0.0}, "prune_margin must be"),
+        ({"prune_window": 0}, "prune_window must be"),
+        ({"n_threads": 0}, "n_threads must be"),
+    ],
+)
+def test_invalid_stopping_options_raise_one_clear_error(kwargs, message):
+    X = np.random.default_rng(0).normal(size=(30, 3))
+    with pytest.raises(GloamError, match=message):
+        fuzzy_cmeans(X, 3, 2.0, **kwargs)

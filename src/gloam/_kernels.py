@@ -1,13 +1,17 @@
 """Optional compiled kernel for the fuzzy c-means iteration (needs numba).
 
-One call does a whole membership update for every active start: squared
-distances in the expanded form ``||x||^2 - 2 x.v + ||v||^2`` (one BLAS product
-of augmented rows, clipped at 0), the memberships, each row's share of the
-objective, the largest membership change, and the weighted sums
+One call of :func:`membership_pass` does a whole membership update of one
+start: squared distances in the expanded form ``||x||^2 - 2 x.v + ||v||^2`` (one
+BLAS product of augmented rows, clipped at 0), the memberships, each row's share
+of the objective, the largest membership change, and the weighted sums
 ``sum_i u_ik^m [x_i, ||x_i||^2, 1]`` the next centroids are made of.  Rows are
 processed in blocks that stay in cache, so nothing of size (n_samples,
 n_clusters) is written except the memberships themselves, which are kept in the
 kernel's block layout (:func:`to_blocks`): one contiguous stretch per block.
+:func:`fcm_advance` runs iterations of one start.  Every function releases the
+GIL and none starts threads of its own: the caller runs whole starts on its
+threads, so no thread ever waits for another in the middle of a start, and the
+numbers of a start do not depend on how many threads there are.
 
 The one transcendental step per element, ``r^(-p) = 2^(-p log2 r)``, is a
 branch-free scalar function of ``r`` written here, so the compiler turns the
@@ -34,13 +38,12 @@ Muller, J.-M. (2016). *Elementary Functions: Algorithms and Implementation*,
 
 from __future__ import annotations
 
-import numba
 import numpy as np
 from llvmlite import ir
-from numba import njit, prange, types
+from numba import njit, types
 from numba.extending import intrinsic
 
-__all__ = ["fcm_run", "fcm_update", "from_blocks", "powers", "set_threads", "to_blocks"]
+__all__ = ["fcm_advance", "from_blocks", "membership_pass", "to_blocks", "weighted_sums"]
 
 _SQRT2 = 1.4142135623730951
 _MANTISSA = 0x000FFFFFFFFFFFFF
@@ -241,273 +244,223 @@ def _coinciding_rows(
         change_rows[i] = largest
 
 
-@njit(cache=True, error_model="numpy", fastmath=_FLAGS, parallel=True)
-def powers(values, m, out):
-    """``out = values ** m`` for memberships in [0, 1] (1-D); below 2^-1022 counts as 0."""
-    for i in prange(values.shape[0]):
-        value = values[i]
-        out[i] = _exp2(m * _log2(value)) if value >= _SMALLEST_NORMAL else 0.0
+@njit(cache=True, error_model="numpy", nogil=True)
+def to_blocks(sample_major, block_rows, blocked):
+    """One start's (n, c) memberships into the kernel's layout ``blocked`` (c * n,).
 
-
-@njit(cache=True, error_model="numpy", parallel=True)
-def to_blocks(sample_major, chunk_rows, block_rows, blocked):
-    """(s, n, c) memberships into the kernel's layout ``blocked`` (s, c * n).
-
-    Rows go in the blocks of :func:`fcm_update` (``chunk_rows`` per parallel
-    unit, ``block_rows`` per block); block ``[lo, lo + rows)`` is stored
-    cluster-major, (c, rows), at offset ``c * lo``, so each block's memberships
-    are one contiguous stretch of memory.
+    Block ``[lo, lo + rows)`` of ``block_rows`` rows is stored cluster-major,
+    (c, rows), at offset ``c * lo``, so each block's memberships are one
+    contiguous stretch of memory.
     """
-    n_starts, n_samples, n_clusters = sample_major.shape
-    n_chunks = (n_samples + chunk_rows - 1) // chunk_rows
-    for unit in prange(n_starts * n_chunks):
-        start = unit // n_chunks
-        chunk_lo = (unit % n_chunks) * chunk_rows
-        chunk_hi = min(chunk_lo + chunk_rows, n_samples)
-        for lo in range(chunk_lo, chunk_hi, block_rows):
-            rows = min(block_rows, chunk_hi - lo)
-            offset = n_clusters * lo
-            for i in range(rows):
-                for k in range(n_clusters):
-                    blocked[start, offset + k * rows + i] = sample_major[start, lo + i, k]
+    n_samples, n_clusters = sample_major.shape
+    for lo in range(0, n_samples, block_rows):
+        rows = min(block_rows, n_samples - lo)
+        offset = n_clusters * lo
+        for i in range(rows):
+            for k in range(n_clusters):
+                blocked[offset + k * rows + i] = sample_major[lo + i, k]
 
 
-@njit(cache=True, error_model="numpy", parallel=True)
-def from_blocks(blocked, chunk_rows, block_rows, sample_major):
-    """The inverse of :func:`to_blocks`: ``blocked`` (s, c * n) into (s, n, c)."""
-    n_starts, n_samples, n_clusters = sample_major.shape
-    n_chunks = (n_samples + chunk_rows - 1) // chunk_rows
-    for unit in prange(n_starts * n_chunks):
-        start = unit // n_chunks
-        chunk_lo = (unit % n_chunks) * chunk_rows
-        chunk_hi = min(chunk_lo + chunk_rows, n_samples)
-        for lo in range(chunk_lo, chunk_hi, block_rows):
-            rows = min(block_rows, chunk_hi - lo)
-            offset = n_clusters * lo
-            for i in range(rows):
-                for k in range(n_clusters):
-                    sample_major[start, lo + i, k] = blocked[start, offset + k * rows + i]
+@njit(cache=True, error_model="numpy", nogil=True)
+def from_blocks(blocked, block_rows, sample_major):
+    """The inverse of :func:`to_blocks`: ``blocked`` (c * n,) into (n, c)."""
+    n_samples, n_clusters = sample_major.shape
+    for lo in range(0, n_samples, block_rows):
+        rows = min(block_rows, n_samples - lo)
+        offset = n_clusters * lo
+        for i in range(rows):
+            for k in range(n_clusters):
+                sample_major[lo + i, k] = blocked[offset + k * rows + i]
 
 
-@njit(cache=True, error_model="numpy", fastmath=_FLAGS, parallel=True)
-def fcm_update(
-    augmented_rows,
-    augmented_centroids,
-    memberships,
-    active,
-    m,
-    coincidence_relative,
-    chunk_rows,
-    block_rows,
-    acc,
-    row_objective,
-    change,
+@njit(cache=True, error_model="numpy", fastmath=_FLAGS, nogil=True)
+def weighted_sums(augmented_rows, memberships, m, block_rows, sums):
+    """``sums`` (c, d + 2) = ``sum_i u_ik^m [x_i, ||x_i||^2, 1]`` for one start's memberships.
+
+    ``memberships`` (c * n,) is in the layout of :func:`to_blocks`; ``u^m`` is
+    ``2^(m log2 u)`` as in the iteration, and a membership below the smallest
+    normal float64 counts as 0.
+    """
+    n_samples, width = augmented_rows.shape
+    n_clusters = sums.shape[0]
+    powered = np.empty(n_clusters * block_rows)
+    partial = np.empty((n_clusters, width))
+    sums[:, :] = 0.0
+    for lo in range(0, n_samples, block_rows):
+        rows = min(block_rows, n_samples - lo)
+        total = n_clusters * rows
+        offset = n_clusters * lo
+        for e in range(total):
+            value = memberships[offset + e]
+            powered[e] = _exp2(m * _log2(value)) if value >= _SMALLEST_NORMAL else 0.0
+        np.dot(powered[:total].reshape((n_clusters, rows)), augmented_rows[lo : lo + rows], partial)
+        sums += partial
+
+
+@njit(cache=True, error_model="numpy", fastmath=_FLAGS, nogil=True)
+def membership_pass(
+    augmented_rows, centroids, memberships, m, block_rows, coincidence_relative, sums
 ):
-    """One membership update of every active start, in place.
+    """One membership update of one start, in place; returns ``(J_m, largest change)``.
 
     Parameters
     ----------
     augmented_rows : float64 (n_samples, n_features + 2), ``[x_i, ||x_i||^2, 1]``.
-    augmented_centroids : float64 (n_starts, n_clusters, n_features + 2),
-        ``[-2 v_k, 1, ||v_k||^2]``, so one product with the rows gives squared distances.
-    memberships : float64 (n_starts, n_clusters * n_samples), in the block layout of
-        :func:`to_blocks`; the old memberships on entry, the new ones (optimal for
-        the centroids) on exit for active starts.
-    active : int64 (n_active,), the starts to update.
+    centroids : float64 (n_clusters, n_features).
+    memberships : float64 (n_clusters * n_samples,), in the layout of :func:`to_blocks`;
+        the old memberships on entry (they only enter the change), on exit the new
+        ones, optimal for ``centroids``.
     m : fuzzifier.  coincidence_relative : see ``gloam.fcm._COINCIDENCE_RELATIVE``.
-    chunk_rows, block_rows : rows per parallel work unit and per cache block.
-    acc : float64 (n_active * n_chunks, n_clusters, n_features + 2), overwritten with
-        each unit's ``sum_i u_ik^m [x_i, ||x_i||^2, 1]`` over its rows (new memberships).
-    row_objective, change : float64 (n_active * n_chunks,), overwritten with each
-        unit's share of ``J_m`` and its largest absolute membership change.
+    block_rows : rows per cache block.
+    sums : float64 (n_clusters, n_features + 2), overwritten with
+        ``sum_i u_ik^m [x_i, ||x_i||^2, 1]`` over the new memberships, blocks in order.
+
+    Returns
+    -------
+    (float, float)
+        The objective ``J_m`` of the new memberships with ``centroids`` and the
+        largest absolute membership change.
     """
     n_samples, width = augmented_rows.shape
-    n_clusters = augmented_centroids.shape[1]
-    n_chunks = (n_samples + chunk_rows - 1) // chunk_rows
-    n_units = active.shape[0] * n_chunks
-    for unit in prange(n_units):
-        start = active[unit // n_chunks]
-        chunk = unit % n_chunks
-        size = n_clusters * block_rows
-        dist_buffer = np.empty(size)
-        power = np.empty(size)
-        aux_buffer = np.empty(size)
-        nearest = np.empty(block_rows)
-        floor = np.empty(block_rows)
-        thresholds = np.empty(block_rows)
-        totals = np.empty(block_rows)
-        flagged = np.empty(block_rows, dtype=np.int64)
-        saved = np.empty(size)
-        change_rows = np.empty(block_rows)
-        partial = np.empty((n_clusters, width))
-        weights = augmented_centroids[start]
-        largest = 0.0
+    n_clusters, n_features = centroids.shape
+    # [-2 v_k, 1, ||v_k||^2]: one product with the augmented rows gives squared distances.
+    weights = np.empty((n_clusters, width))
+    largest = 0.0
+    for k in range(n_clusters):
+        norm = 0.0
+        for j in range(n_features):
+            value = centroids[k, j]
+            weights[k, j] = -2.0 * value
+            norm += value * value
+        weights[k, n_features] = 1.0
+        weights[k, n_features + 1] = norm
+        largest = max(largest, norm)
+    size = n_clusters * block_rows
+    dist_buffer = np.empty(size)
+    power = np.empty(size)
+    aux_buffer = np.empty(size)
+    saved = np.empty(size)
+    nearest = np.empty(block_rows)
+    floor = np.empty(block_rows)
+    thresholds = np.empty(block_rows)
+    totals = np.empty(block_rows)
+    change_rows = np.empty(block_rows)
+    flagged = np.empty(block_rows, dtype=np.int64)
+    partial = np.empty((n_clusters, width))
+    sums[:, :] = 0.0
+    objective_sum = 0.0
+    largest_change = 0.0
+    for lo in range(0, n_samples, block_rows):
+        rows = min(block_rows, n_samples - lo)
+        total = n_clusters * rows
+        block = augmented_rows[lo : lo + rows]
+        # Squared distances, cluster-major dist[k * rows + i], through BLAS.
+        dist = dist_buffer[:total].reshape((n_clusters, rows))
+        np.dot(weights, block.T, dist)
+        dist_flat = dist_buffer[:total]
+        for i in range(rows):
+            nearest[i] = np.inf
+            thresholds[i] = coincidence_relative * (block[i, width - 2] + largest + 1.0)
+            floor[i] = thresholds[i]
         for k in range(n_clusters):
-            largest = max(largest, weights[k, width - 1])
-        unit_acc = acc[unit]
-        unit_acc[:, :] = 0.0
-        objective_sum = 0.0
-        largest_change = 0.0
-        chunk_lo = chunk * chunk_rows
-        chunk_hi = min(chunk_lo + chunk_rows, n_samples)
-        for lo in range(chunk_lo, chunk_hi, block_rows):
-            rows = min(block_rows, chunk_hi - lo)
-            total = n_clusters * rows
-            block = augmented_rows[lo : lo + rows]
-            # Squared distances, cluster-major dist[k * rows + i], through BLAS.
-            dist = dist_buffer[:total].reshape((n_clusters, rows))
-            np.dot(weights, block.T, dist)
-            dist_flat = dist_buffer[:total]
+            base = k * rows
             for i in range(rows):
-                nearest[i] = np.inf
-                thresholds[i] = coincidence_relative * (block[i, width - 2] + largest + 1.0)
-                floor[i] = thresholds[i]
-            for k in range(n_clusters):
-                base = k * rows
-                for i in range(rows):
-                    value = max(dist_flat[base + i], 0.0)
-                    dist_flat[base + i] = value
-                    nearest[i] = min(nearest[i], value)
-            target = memberships[start, n_clusters * lo : n_clusters * lo + total]
-            n_flagged = _block_update(
-                dist_flat,
-                nearest,
-                floor,
-                flagged,
-                power,
-                totals,
-                aux_buffer,
-                target,
-                saved,
-                change_rows,
-                rows,
-                n_clusters,
-                m,
-            )
-            _coinciding_rows(
-                dist_flat,
-                flagged,
-                n_flagged,
-                thresholds,
-                target,
-                aux_buffer,
-                totals,
-                saved,
-                change_rows,
-                rows,
-                n_clusters,
-                m,
-            )
-            for i in range(rows):
-                objective_sum += totals[i]
-                largest_change = max(largest_change, change_rows[i])
-            np.dot(aux_buffer[:total].reshape((n_clusters, rows)), block, partial)
-            unit_acc += partial
-        row_objective[unit] = objective_sum
-        change[unit] = largest_change
+                value = max(dist_flat[base + i], 0.0)
+                dist_flat[base + i] = value
+                nearest[i] = min(nearest[i], value)
+        target = memberships[n_clusters * lo : n_clusters * lo + total]
+        n_flagged = _block_update(
+            dist_flat,
+            nearest,
+            floor,
+            flagged,
+            power,
+            totals,
+            aux_buffer,
+            target,
+            saved,
+            change_rows,
+            rows,
+            n_clusters,
+            m,
+        )
+        _coinciding_rows(
+            dist_flat,
+            flagged,
+            n_flagged,
+            thresholds,
+            target,
+            aux_buffer,
+            totals,
+            saved,
+            change_rows,
+            rows,
+            n_clusters,
+            m,
+        )
+        for i in range(rows):
+            objective_sum += totals[i]
+            largest_change = max(largest_change, change_rows[i])
+        np.dot(aux_buffer[:total].reshape((n_clusters, rows)), block, partial)
+        sums += partial
+    return objective_sum, largest_change
 
 
-@njit(cache=True, error_model="numpy", fastmath=_FLAGS)
-def fcm_run(
+@njit(cache=True, error_model="numpy", fastmath=_FLAGS, nogil=True)
+def fcm_advance(
     augmented_rows,
+    sums,
     centroids,
     memberships,
     m,
     tol,
-    max_iter,
-    coincidence_relative,
-    chunk_rows,
+    objective_tol,
+    first,
+    last,
     block_rows,
-    objectives,
-    n_iter,
-    converged,
+    coincidence_relative,
+    trace,
 ):
-    """Iterate every start from ``centroids`` until ``tol`` or ``max_iter``, in place.
+    """Iterations ``first`` to ``last`` (counted from 1) of one start, in place.
 
-    The whole loop runs here so an iteration costs no interpreter time.  Each
-    start stops on its own once its largest membership change is below ``tol``.
+    The state of a start is its memberships and the weighted sums made from them,
+    so a run split into several calls gives the same numbers as one call: a
+    caller may look at the objectives between calls (to prune trailing starts)
+    without changing any start.  The GIL is released, so threads can run
+    different starts at once.
 
     Parameters
     ----------
-    augmented_rows : float64 (n_samples, n_features + 2), see :func:`fcm_update`.
-    centroids : float64 (n_starts, n_clusters, n_features); the first centroids on
-        entry, on exit those the final memberships were computed from.
-    memberships : float64 (n_starts, n_clusters * n_samples), block layout of
-        :func:`to_blocks`; the initial memberships on entry (they only enter the first
-        membership change), the final memberships on exit.
-    m, tol, max_iter : fuzzifier, stopping threshold, iteration limit.
-    coincidence_relative, chunk_rows, block_rows : see :func:`fcm_update`.
-    objectives, n_iter, converged : (n_starts,) float64, int64, bool; overwritten
-        with each start's ``J_m``, iterations done and whether it reached ``tol``.
+    augmented_rows : float64 (n_samples, n_features + 2), see :func:`membership_pass`.
+    sums : float64 (n_clusters, n_features + 2), ``sum_i u_ik^m [x_i, ||x_i||^2, 1]``
+        of the current memberships (:func:`weighted_sums` for the first call).
+    centroids : float64 (n_clusters, n_features), overwritten; on exit the centroids
+        the final memberships were computed from.
+    memberships : float64 (n_clusters * n_samples,), layout of :func:`to_blocks`.
+    m, tol : fuzzifier and membership-change threshold.
+    objective_tol : also stop when ``J_{t-1} - J_t <= objective_tol * J_t`` (0: off).
+    first, last : the iterations to run; ``trace`` (max_iter,) receives ``J_m`` of
+        iteration ``t`` at ``t - 1`` (``trace[first - 2]`` must hold the previous one).
+    block_rows, coincidence_relative : see :func:`membership_pass`.
+
+    Returns
+    -------
+    (int, bool)
+        The last iteration done and whether a stopping test was met there.
     """
-    n_starts, n_clusters, n_features = centroids.shape
-    n_samples, width = augmented_rows.shape
-    n_chunks = (n_samples + chunk_rows - 1) // chunk_rows
-    augmented = np.empty((n_starts, n_clusters, width))
-    acc = np.empty((n_starts * n_chunks, n_clusters, width))
-    unit_objective = np.empty(n_starts * n_chunks)
-    unit_change = np.empty(n_starts * n_chunks)
-    active = np.arange(n_starts)
-    n_active = n_starts
-    for start in range(n_starts):
-        converged[start] = False
-        n_iter[start] = 0
-    for iteration in range(1, max_iter + 1):
-        for a in range(n_active):
-            start = active[a]
-            for k in range(n_clusters):
-                norm = 0.0
-                for j in range(n_features):
-                    value = centroids[start, k, j]
-                    augmented[start, k, j] = -2.0 * value
-                    norm += value * value
-                augmented[start, k, n_features] = 1.0
-                augmented[start, k, n_features + 1] = norm
-        units = n_active * n_chunks
-        fcm_update(
-            augmented_rows,
-            augmented,
-            memberships,
-            active[:n_active],
-            m,
-            coincidence_relative,
-            chunk_rows,
-            block_rows,
-            acc[:units],
-            unit_objective[:units],
-            unit_change[:units],
+    n_features = centroids.shape[1]
+    for iteration in range(first, last + 1):
+        # Centroids from sum_i u_ik^m [x_i, ||x_i||^2, 1] (the last column is the weight).
+        for k in range(centroids.shape[0]):
+            for j in range(n_features):
+                centroids[k, j] = sums[k, j] / sums[k, n_features + 1]
+        objective, change = membership_pass(
+            augmented_rows, centroids, memberships, m, block_rows, coincidence_relative, sums
         )
-        still = 0
-        for a in range(n_active):
-            start = active[a]
-            total = 0.0
-            largest = 0.0
-            for chunk in range(a * n_chunks, (a + 1) * n_chunks):
-                total += unit_objective[chunk]
-                largest = max(largest, unit_change[chunk])
-            objectives[start] = total
-            n_iter[start] = iteration
-            if largest < tol:
-                converged[start] = True
-                continue
-            active[still] = start
-            still += 1
-            if iteration == max_iter:
-                continue
-            # Next centroids from sum_i u_ik^m [x_i, ||x_i||^2, 1] over the chunks.
-            sums = acc[a * n_chunks].copy()
-            for chunk in range(a * n_chunks + 1, (a + 1) * n_chunks):
-                sums += acc[chunk]
-            for k in range(n_clusters):
-                for j in range(n_features):
-                    centroids[start, k, j] = sums[k, j] / sums[k, n_features + 1]
-        n_active = still
-        if n_active == 0:
-            break
-
-
-def set_threads(n_threads: int) -> int:
-    """Set numba's thread count (capped at its pool size); returns the previous count."""
-    previous = numba.get_num_threads()
-    numba.set_num_threads(max(1, min(int(n_threads), numba.config.NUMBA_NUM_THREADS)))
-    return previous
+        trace[iteration - 1] = objective
+        if change < tol:
+            return iteration, True
+        if objective_tol > 0.0 and iteration > 1:
+            if trace[iteration - 2] - objective <= objective_tol * objective:
+                return iteration, True
+    return last, False

@@ -31,13 +31,20 @@ done in row blocks small enough to stay in cache, spread over a thread pool
 
 The default ``precision="fast"`` runs the same algebra, the whole iteration
 loop included, in compiled code (:mod:`gloam._kernels`, needs numba, the
-``fast`` extra): row blocks of every start in parallel, BLAS for the two
-products inside each block, ``r^(-p) = exp(-p ln r)`` with float64-accurate
-vectorised ``ln``/``exp``, and the centroid sums accumulated as the memberships
-are made, so no (n_starts, n_samples, n_clusters) array is written but the
-memberships, which stay cluster-major until the end.
+``fast`` extra): BLAS for the two products of each row block,
+``r^(-p) = exp(-p ln r)`` with float64-accurate vectorised ``ln``/``exp``, and
+the centroid sums accumulated as the memberships are made, so no
+(n_starts, n_samples, n_clusters) array is written but the memberships, which
+stay cluster-major until the end and are then turned into the result in place.
+Threads run whole starts, not parts of one iteration, so they never wait for
+each other within a start (a loaded machine cannot make more threads slower than
+fewer) and the result does not depend on the number of threads.
 Without numba, ``"fast"`` falls back to the float64 element-wise path, so it
 keeps its accuracy everywhere.
+
+Starts that trail can be stopped early (``prune``): an Aitken forecast of each
+start's final objective against the best current objective (see
+:func:`fuzzy_cmeans`).
 
 Rows that coincide with a centroid (zero distance, up to rounding of the BLAS
 form) get membership 1 there, split evenly between coinciding centroids, so no
@@ -51,6 +58,8 @@ Hathaway, R. J. & Bezdek, J. C. (1995). Optimization of clustering criteria by
 reformulation. *IEEE Transactions on Fuzzy Systems* 3(2):241-245.
 Arthur, D. & Vassilvitskii, S. (2007). k-means++: the advantages of careful
 seeding. *Proc. SODA 2007*, 1027-1035.
+Aitken, A. C. (1926). On Bernoulli's numerical solution of algebraic equations.
+*Proceedings of the Royal Society of Edinburgh* 46:289-305.
 """
 
 from __future__ import annotations
@@ -77,6 +86,8 @@ if os.environ.get("GLOAM_DISABLE_NUMBA", "") != "1":
         _kernels = None
 
 __all__ = [
+    "PRUNE_MARGIN",
+    "PRUNE_WINDOW",
     "FuzzyPartition",
     "MultiStartResult",
     "fuzzy_cmeans",
@@ -96,8 +107,10 @@ _ELEMENTWISE_DTYPES: dict[str, type[np.floating]] = {
     "float64": np.float64,
     "float32": np.float32,
 }
-# Rows per parallel work unit of the compiled kernel (rounded so every thread gets as many).
-_CHUNK_ROWS = 4096
+#: Default relative margin of the pruning rule (``fuzzy_cmeans(prune=True)``).
+PRUNE_MARGIN = 0.01
+#: Default iterations between pruning checks (and between the objectives of the forecast).
+PRUNE_WINDOW = 20
 # Rows per block of the element-wise part: 2048 rows x 30 clusters x 8 bytes is ~0.5 MB per
 # array, so the handful of arrays a block touches stays in a core's L2 cache.
 _BLOCK_ROWS = 2048
@@ -122,9 +135,12 @@ class FuzzyPartition:
     n_iter : int
         Centroid-and-membership updates performed.
     converged : bool
-        Whether the largest membership change fell below ``tol``.
+        Whether a stopping test was met (membership change below ``tol``, or the
+        objective test ``objective_tol``).
     m : float
         The fuzzifier used.
+    pruned : bool
+        Whether the start was stopped because it trailed the best start (``prune``).
     """
 
     centroids: np.ndarray
@@ -133,6 +149,7 @@ class FuzzyPartition:
     n_iter: int
     converged: bool
     m: float
+    pruned: bool = False
 
     @property
     def n_clusters(self) -> int:
@@ -148,12 +165,18 @@ class MultiStartResult:
     centroids : ndarray of shape (n_starts, n_clusters, n_features)
     memberships : ndarray of shape (n_starts, n_samples, n_clusters)
     objectives : ndarray of shape (n_starts,)
-        ``J_m`` of each start; lower is better.
+        ``J_m`` of each start (of its last iteration); lower is better.
     n_iter : ndarray of shape (n_starts,), int
     converged : ndarray of shape (n_starts,), bool
+        A stopping test was met; never True for a pruned start.
     m : float
     best_index : int
         Index of the start with the lowest objective (first one on ties).
+    pruned : ndarray of shape (n_starts,), bool
+        Starts stopped because they trailed the best one (``fuzzy_cmeans(prune=True)``);
+        their memberships, centroids and objective are those of their last iteration.
+        Default (None): no start pruned.  When combining or subsetting results, combine
+        or subset this array with the others.
     """
 
     centroids: np.ndarray
@@ -163,6 +186,11 @@ class MultiStartResult:
     converged: np.ndarray
     m: float
     best_index: int
+    pruned: np.ndarray | None = None
+
+    def __post_init__(self) -> None:
+        if self.pruned is None:
+            object.__setattr__(self, "pruned", np.zeros(self.objectives.shape[0], dtype=bool))
 
     @property
     def n_starts(self) -> int:
@@ -181,6 +209,7 @@ class MultiStartResult:
             n_iter=int(self.n_iter[index]),
             converged=bool(self.converged[index]),
             m=self.m,
+            pruned=bool(self.pruned[index]),
         )
 
     def best(self) -> FuzzyPartition:
@@ -251,6 +280,35 @@ def _check_parameters(
         raise GloamError(
             f"precision must be one of {sorted(_ELEMENTWISE_DTYPES)}; got {precision!r}"
         )
+
+
+def _check_stopping(
+    objective_tol: float, prune: bool, prune_margin: float, prune_window: int, n_threads
+) -> None:
+    if not (
+        isinstance(objective_tol, int | float | np.floating)
+        and math.isfinite(objective_tol)
+        and 0 <= objective_tol < 1
+    ):
+        raise GloamError(f"objective_tol must be a number in [0, 1); got {objective_tol!r}")
+    if not isinstance(prune, bool | np.bool_):
+        raise GloamError(f"prune must be True or False; got {prune!r}")
+    if not (
+        isinstance(prune_margin, int | float | np.floating)
+        and math.isfinite(prune_margin)
+        and prune_margin > 0
+    ):
+        raise GloamError(f"prune_margin must be a finite number > 0; got {prune_margin!r}")
+    if (
+        isinstance(prune_window, bool)
+        or not isinstance(prune_window, int | np.integer)
+        or prune_window < 1
+    ):
+        raise GloamError(f"prune_window must be an integer >= 1; got {prune_window!r}")
+    if n_threads is not None and (
+        isinstance(n_threads, bool) or not isinstance(n_threads, int | np.integer) or n_threads < 1
+    ):
+        raise GloamError(f"n_threads must be an integer >= 1 or None; got {n_threads!r}")
 
 
 def _check_initial_memberships(
@@ -524,46 +582,58 @@ def _memberships_for_centroids(
 
     ``dtype`` None means the compiled kernel.
     """
-    if dtype is None:
-        # One iteration is the membership update alone: the centroids stay as given.
-        s, c, _ = centroids.shape
-        threads = max(1, n_threads or _default_threads())
-        with _KernelThreads(threads):
-            memberships, *_ = _compiled_run(
-                X,
-                np.array(centroids, dtype=np.float64),
-                np.zeros((s, c * X.shape[0])),
-                m,
-                0.0,
-                1,
-                threads,
-            )
-        return memberships
     s, c, _ = centroids.shape
     n = X.shape[0]
+    threads = max(1, n_threads or _default_threads())
+    if dtype is None:
+        rows = _augmented_rows(X)
+        block_rows = _kernel_block_rows(c)
+        centroids = np.ascontiguousarray(centroids, dtype=np.float64)
+        memberships = np.empty((s, n, c))
+
+        def one_start(index: int) -> None:
+            blocked = np.zeros(c * n)
+            _kernels.membership_pass(
+                rows,
+                centroids[index],
+                blocked,
+                m,
+                block_rows,
+                _COINCIDENCE_RELATIVE,
+                np.empty((c, rows.shape[1])),
+            )
+            _kernels.from_blocks(blocked, block_rows, memberships[index])
+
+        with _KernelThreads(threads) as pool:
+            pool.map(one_start, range(s))
+        return memberships
     rows = _augmented_rows(X)
     distances = _distances_cluster_major(rows, centroids)
     memberships = np.empty((s, c, n), dtype=dtype)
     scratch = np.empty((s, n))
-    with _BlockRunner(n, c, n_threads or _default_threads()) as runner:
+    with _BlockRunner(n, c, threads) as runner:
         floor = _coincidence_floor(np.ascontiguousarray(rows[:, -2]), centroids)
         runner.run(range(s), distances, floor, memberships, None, scratch, scratch, m)
     return _sample_major(memberships)
 
 
-def _kernel_layout(n_samples: int, n_clusters: int, n_threads: int) -> tuple[int, int]:
-    """(rows per parallel unit, rows per cache block) for the compiled kernel."""
-    per_thread = -(-n_samples // (n_threads * _CHUNK_ROWS))
-    n_chunks = n_threads * per_thread
-    chunk_rows = -(-n_samples // n_chunks)
-    # A block's handful of (c, rows) float64 scratch arrays stays within a core's L2 cache.
-    block_rows = max(128, min(1024, 16384 // n_clusters))
-    return chunk_rows, block_rows
+def _kernel_block_rows(n_clusters: int) -> int:
+    """Rows per cache block of the compiled kernel.
+
+    A block's handful of (c, rows) float64 scratch arrays stays within a core's L2 cache.
+    The layout depends on c only, never on the thread count, so results do not either.
+    """
+    return max(128, min(1024, 16384 // n_clusters))
 
 
 class _KernelThreads:
-    """Context: numba on ``n_threads`` threads and BLAS on one (the kernel is the parallel part).
+    """Context: a pool of ``n_threads`` threads running whole starts, BLAS on one thread.
 
+    Each task is one start (for a round of iterations, or to the end), so no thread
+    waits for another inside a start: on a busy machine a descheduled thread only
+    delays its own start while the other threads take the remaining starts.  Idle
+    threads block on the pool's queue instead of spinning.  BLAS is limited to one
+    thread because the kernel's products are small and run on every thread at once.
     The BLAS libraries are found once per process (a search costs about 0.5 ms),
     after importing the SciPy BLAS that numba's ``np.dot`` calls.
     """
@@ -571,98 +641,185 @@ class _KernelThreads:
     controller: ThreadpoolController | None = None
 
     def __init__(self, n_threads: int) -> None:
-        self.n_threads = n_threads
+        self.n_threads = max(1, int(n_threads))
+        self.executor: ThreadPoolExecutor | None = None
 
     def __enter__(self) -> _KernelThreads:
         if _KernelThreads.controller is None:
             import scipy.linalg.cython_blas  # noqa: F401  (loads the BLAS numba binds to)
 
             _KernelThreads.controller = ThreadpoolController()
-        self.previous = _kernels.set_threads(self.n_threads)
         self.blas_limit = _KernelThreads.controller.limit(limits=1, user_api="blas")
+        if self.n_threads > 1:
+            self.executor = ThreadPoolExecutor(self.n_threads, thread_name_prefix="gloam-fcm")
         return self
 
     def __exit__(self, *exc: object) -> None:
+        if self.executor is not None:
+            self.executor.shutdown()
         self.blas_limit.restore_original_limits()
-        _kernels.set_threads(self.previous)
+
+    def map(self, function, items) -> list:
+        """``[function(item) for item in items]``, items spread over the threads (first come)."""
+        items = list(items)
+        if self.executor is None or len(items) < 2:
+            return [function(item) for item in items]
+        # list() re-raises here any exception raised in a worker.
+        return list(self.executor.map(function, items))
 
 
-def _kernel_blocks(memberships: np.ndarray, n_threads: int) -> np.ndarray:
-    """(s, n, c) memberships -> new (s, c * n) array in the kernel's block layout.
+@dataclass(frozen=True)
+class _PruneRule:
+    """When a start counts as trailing (see :func:`fuzzy_cmeans`, ``prune``)."""
 
-    Call inside :class:`_KernelThreads`.
+    margin: float
+    window: int
+
+
+def _trailing_starts(
+    trace: np.ndarray, iteration: int, candidates: np.ndarray, leader: float, rule: _PruneRule
+) -> np.ndarray:
+    """The ``candidates`` (start indices) whose forecast final objective trails ``leader``.
+
+    ``trace`` (s, max_iter) holds ``J_m`` of iteration t at column t - 1; every
+    candidate has run ``iteration`` iterations (t).  With w = ``rule.window`` and the
+    decreases over the last three windows ``d1, d2, d3`` (``d3 = J_{t-w} - J_t``), the
+    rest of a linearly converging sequence is the geometric series ``d3 q / (1 - q)``
+    (Aitken's delta-squared extrapolation); ``q`` is the larger of the two observed
+    window ratios ``d2 / d1`` and ``d3 / d2``, so a decrease that slows irregularly gets
+    the longer tail.  A start whose decrease is not slowing (a ratio >= 1) gets no
+    forecast and is kept; one that no longer decreases (``d3 <= 0``) is forecast at
+    ``J_t``.  Returns a boolean mask over ``candidates``.
     """
-    n_starts, n_samples, n_clusters = memberships.shape
-    chunk_rows, block_rows = _kernel_layout(n_samples, n_clusters, n_threads)
-    blocked = np.empty((n_starts, n_clusters * n_samples))
-    _kernels.to_blocks(
-        np.ascontiguousarray(memberships, dtype=np.float64), chunk_rows, block_rows, blocked
-    )
-    return blocked
+    w = rule.window
+    if iteration - 3 * w < 1 or candidates.size == 0:
+        return np.zeros(candidates.size, dtype=bool)
+    values = [trace[candidates, iteration - k * w - 1] for k in range(4)]  # J_t, J_{t-w}, ...
+    now = values[0]
+    d3 = values[1] - values[0]
+    d2 = values[2] - values[1]
+    d1 = values[3] - values[2]
+    forecast = np.full(candidates.size, -np.inf)
+    stalled = d3 <= 0
+    forecast[stalled] = now[stalled]
+    slowing = ~stalled & (d3 < d2) & (d2 < d1)
+    q = np.maximum(d2[slowing] / d1[slowing], d3[slowing] / d2[slowing])
+    forecast[slowing] = now[slowing] - d3[slowing] * q / (1.0 - q)
+    return forecast > leader * (1.0 + rule.margin)
 
 
-def _compiled_run(
+def _leader(trace: np.ndarray, n_iter: np.ndarray, pruned: np.ndarray) -> float:
+    """Lowest current objective of the starts not pruned (an upper bound of the best's final)."""
+    kept = np.flatnonzero(~pruned & (n_iter > 0))
+    return float(trace[kept, n_iter[kept] - 1].min())
+
+
+def _compiled_fit(
     X: np.ndarray,
-    centroids: np.ndarray,
-    blocked: np.ndarray,
+    n_clusters: int,
+    n_starts: int,
     m: float,
+    *,
+    init: str,
+    generator: np.random.Generator,
+    initial: np.ndarray | None,
     tol: float,
+    objective_tol: float,
     max_iter: int,
+    rule: _PruneRule | None,
     n_threads: int,
-) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """:func:`_run_starts` through :func:`gloam._kernels.fcm_run` (same iterates and stopping).
+):
+    """Every start through :func:`gloam._kernels.fcm_advance`, whole starts per thread.
 
-    ``centroids`` (s, c, d) holds the first centroids and is updated in place to
-    those the final memberships were computed from; ``blocked`` (s, c * n), from
-    :func:`_kernel_blocks` with the same ``n_threads``, holds the initial
-    memberships and is overwritten.  Returns the final memberships (s, n, c),
-    objectives, iterations and convergence per start.  Call inside
-    :class:`_KernelThreads`.
+    Memory: one (s, c * n) array holds every start's memberships in the kernel's block
+    layout from the first draw to the end, and is turned into the (s, n, c) result in
+    place, one start at a time; nothing else is larger than one start.
     """
-    n_starts, n_clusters, _ = centroids.shape
-    n_samples = X.shape[0]
-    chunk_rows, block_rows = _kernel_layout(n_samples, n_clusters, n_threads)
-    objectives = np.empty(n_starts)
-    n_iter = np.zeros(n_starts, dtype=np.int64)
-    converged = np.zeros(n_starts, dtype=bool)
-    memberships = np.empty((n_starts, n_samples, n_clusters))
-    _kernels.fcm_run(
-        _augmented_rows(X),
-        centroids,
-        blocked,
-        m,
-        tol,
-        max_iter,
-        _COINCIDENCE_RELATIVE,
-        chunk_rows,
-        block_rows,
-        objectives,
-        n_iter,
-        converged,
-    )
-    _kernels.from_blocks(blocked, chunk_rows, block_rows, memberships)
-    return memberships, objectives, n_iter, converged
-
-
-def _initial_centroids(X: np.ndarray, initial: np.ndarray, m: float) -> np.ndarray:
-    """Centroids (s, c, d) from memberships (s, n, c), one start at a time.
-
-    Only one start's ``u^m`` (through the kernel's power, as accurate as
-    ``np.power`` to about 1e-15) exists at a time, so the first centroids cost
-    (n, c) of memory, not another (s, n, c) array.  Call inside
-    :class:`_KernelThreads`.
-    """
-    data_with_ones = np.hstack([X, np.ones((X.shape[0], 1))])
-    n_features = X.shape[1]
-    centroids = np.empty((initial.shape[0], initial.shape[2], n_features))
-    powered = np.empty(initial.shape[1:])
-    for start, memberships in enumerate(initial):
-        _kernels.powers(
-            np.ascontiguousarray(memberships, dtype=np.float64).reshape(-1), m, powered.reshape(-1)
+    n_samples, n_features = X.shape
+    c, s = n_clusters, n_starts
+    rows = _augmented_rows(X)
+    block_rows = _kernel_block_rows(c)
+    # Zero pages cost no memory until written; each start's slab is filled below.
+    blocked = np.zeros((s, c * n_samples))
+    sums = np.empty((s, c, n_features + 2))
+    centroids = np.empty((s, c, n_features))
+    trace = np.full((s, max_iter), np.nan)
+    n_iter = np.zeros(s, dtype=np.int64)
+    converged = np.zeros(s, dtype=bool)
+    pruned = np.zeros(s, dtype=bool)
+    with _KernelThreads(n_threads) as pool:
+        if initial is not None:
+            for index in range(s):
+                _kernels.to_blocks(initial[index], block_rows, blocked[index])
+        elif init == "random":
+            # The same draws, in the same order, as random_memberships(s, n, c).
+            for index in range(s):
+                draws = generator.standard_exponential((n_samples, c))
+                draws /= draws.sum(axis=1, keepdims=True)
+                _kernels.to_blocks(draws, block_rows, blocked[index])
+        else:
+            seeds = kmeanspp_centroids(X, c, s, rng=generator)
+            pool.map(
+                lambda index: _kernels.membership_pass(
+                    rows,
+                    seeds[index],
+                    blocked[index],
+                    m,
+                    block_rows,
+                    _COINCIDENCE_RELATIVE,
+                    sums[index],
+                ),
+                range(s),
+            )
+        pool.map(
+            lambda index: _kernels.weighted_sums(rows, blocked[index], m, block_rows, sums[index]),
+            range(s),
         )
-        sums = powered.T @ data_with_ones
-        centroids[start] = sums[:, :n_features] / sums[:, n_features:]
-    return centroids
+        active = np.arange(s)
+        done = 0
+        step = rule.window if rule is not None else max_iter
+        while active.size:
+            last = min(done + step, max_iter)
+
+            def advance(index: int, first: int = done + 1, last: int = last):
+                return _kernels.fcm_advance(
+                    rows,
+                    sums[index],
+                    centroids[index],
+                    blocked[index],
+                    m,
+                    tol,
+                    objective_tol,
+                    first,
+                    last,
+                    block_rows,
+                    _COINCIDENCE_RELATIVE,
+                    trace[index],
+                )
+
+            for index, (reached, stopped) in zip(active, pool.map(advance, active), strict=True):
+                n_iter[index] = reached
+                converged[index] = stopped
+            done = last
+            active = active[~converged[active]]
+            if done >= max_iter:
+                break
+            if rule is not None and active.size:
+                trailing = _trailing_starts(
+                    trace, done, active, _leader(trace, n_iter, pruned), rule
+                )
+                pruned[active[trailing]] = True
+                active = active[~trailing]
+        # In place, start by start: block layout (c * n) -> sample-major (n, c).
+        memberships = blocked.reshape(s, n_samples, c)
+        pool.map(
+            lambda index: _kernels.from_blocks(
+                blocked[index].copy(), block_rows, memberships[index]
+            ),
+            range(s),
+        )
+    objectives = trace[np.arange(s), n_iter - 1]
+    return centroids, memberships, objectives, n_iter, converged, pruned
 
 
 def _run_starts(
@@ -673,12 +830,14 @@ def _run_starts(
     max_iter: int,
     dtype: type,
     n_threads: int,
-) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    objective_tol: float = 0.0,
+    rule: _PruneRule | None = None,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Iterate every start from its initial memberships (s, n, c); no input checks.
 
-    Each start stops on its own as soon as its largest membership change is below
-    ``tol``; the others go on, so every start's result is the one a single-start
-    run from the same memberships gives.
+    Each start stops on its own as soon as a stopping test is met (or it is pruned);
+    the others go on, so every start's result is the one a single-start run from the
+    same memberships gives.
     """
     n_starts, n_samples, n_clusters = initial.shape
     n_features = X.shape[1]
@@ -694,9 +853,10 @@ def _run_starts(
     row_change = np.empty((n_starts, n_samples))
     floor = np.zeros((n_starts, n_samples))
     centroids = np.empty((n_starts, n_clusters, n_features))
-    objectives = np.full(n_starts, np.inf)
+    trace = np.full((n_starts, max_iter), np.nan)
     n_iter = np.zeros(n_starts, dtype=np.int64)
     converged = np.zeros(n_starts, dtype=bool)
+    pruned = np.zeros(n_starts, dtype=bool)
     active = np.arange(n_starts)
 
     with _BlockRunner(n_samples, n_clusters, n_threads) as runner:
@@ -719,15 +879,26 @@ def _run_starts(
                 finished_starts = np.setdiff1d(np.arange(n_starts), active)
                 current[finished_starts] = spare[finished_starts]
             change = row_change[active].max(axis=1)
-            objectives[active] = row_objective[active].sum(axis=1)
+            values = row_objective[active].sum(axis=1)
+            trace[active, iteration - 1] = values
             n_iter[active] = iteration
             finished = change < tol
+            if objective_tol > 0 and iteration > 1:
+                previous = trace[active, iteration - 2]
+                finished |= previous - values <= objective_tol * values
             converged[active[finished]] = True
             active = active[~finished]
+            if rule is not None and iteration % rule.window == 0 and active.size:
+                trailing = _trailing_starts(
+                    trace, iteration, active, _leader(trace, n_iter, pruned), rule
+                )
+                pruned[active[trailing]] = True
+                active = active[~trailing]
             if active.size == 0:
                 break
     del spare, weighted
-    return centroids, _sample_major(current), objectives, n_iter, converged
+    objectives = trace[np.arange(n_starts), n_iter - 1]
+    return centroids, _sample_major(current), objectives, n_iter, converged, pruned
 
 
 # --------------------------------------------------------------------------------------------
@@ -748,6 +919,10 @@ def fuzzy_cmeans(
     initial_memberships: np.ndarray | None = None,
     precision: Precision = "fast",
     n_threads: int | None = None,
+    objective_tol: float = 0.0,
+    prune: bool = False,
+    prune_margin: float = PRUNE_MARGIN,
+    prune_window: int = PRUNE_WINDOW,
 ) -> MultiStartResult:
     """Fuzzy c-means from many starts at once; returns every start and the best.
 
@@ -763,7 +938,8 @@ def fuzzy_cmeans(
         Random starts, all iterated together.
     tol : float, default 1e-4
         Stop a start when the largest absolute membership change between two
-        iterations is below ``tol``.  ``0`` runs exactly ``max_iter`` iterations.
+        iterations is below ``tol``.  ``0`` runs exactly ``max_iter`` iterations
+        (unless ``objective_tol`` or ``prune`` stop a start).
     max_iter : int, default 500
         Upper bound on iterations (centroid update + membership update).
     init : {"random", "kmeans++"}, default "random"
@@ -778,13 +954,49 @@ def fuzzy_cmeans(
         results are float64 in every case.  ``"float64"``: NumPy element-wise
         float64 (the reference path).  ``"float32"``: NumPy with a float32
         element-wise part; memberships agree with float64 to about 1e-6.
-        ``"fast"``: one compiled kernel per iteration (needs numba, the
-        ``fast`` extra) with float64-accurate vectorised ``ln``/``exp``;
-        memberships agree with ``"float64"`` to about 1e-13.  Without numba
-        ``"fast"`` falls back to ``"float64"``.
+        ``"fast"``: the compiled kernel (needs numba, the ``fast`` extra) with
+        float64-accurate vectorised ``ln``/``exp``; memberships agree with
+        ``"float64"`` to about 1e-13.  Without numba ``"fast"`` falls back to
+        ``"float64"``.
     n_threads : int, optional
-        Threads for the membership update.  Default: ``GLOAM_NUM_THREADS`` or
-        ``OMP_NUM_THREADS`` when set, else the CPUs this process may use.
+        Threads.  Default: ``GLOAM_NUM_THREADS`` or ``OMP_NUM_THREADS`` when set,
+        else the CPUs this process may use.  With ``"fast"`` each thread runs whole
+        starts (no thread waits for another inside a start, so a busy machine slows
+        a run at most as much as it slows one thread), and the results are the same,
+        bit for bit, for every thread count; a single start uses one thread.
+    objective_tol : float, default 0.0
+        Second stopping test (common practice; 0 turns it off): a start also stops,
+        and counts as converged, when its objective fell by at most ``objective_tol``
+        times its value in the last iteration, ``J_{t-1} - J_t <= objective_tol J_t``.
+        It changes where every start stops, the best one included.
+    prune : bool, default False
+        Stop starts that cannot catch up with the best one (the *leader*: the lowest
+        current objective of the starts not pruned, which can only fall further).
+        Every ``prune_window`` iterations w, from iteration 3w on, each running start's
+        final objective is forecast by Aitken's delta-squared extrapolation (Aitken
+        1926; the forecast of Böhning et al. 1994 and McNicholas et al. 2010 for
+        stopping EM) applied to its objectives every w iterations: with the decreases
+        over the last three windows ``d1, d2, d3``, the forecast is
+        ``J_t - d3 q / (1 - q)`` with ``q = max(d2 / d1, d3 / d2)`` (the slower of the two
+        observed rates, the cautious choice).  A start whose forecast is above
+        ``(1 + prune_margin)`` times the leader's current objective is pruned; a start
+        whose decrease is not slowing (a ratio >= 1) is never pruned, and one that
+        stopped decreasing is forecast at ``J_t``.  Pruning only stops starts; it
+        changes no number of the starts that go on, so the best start's result is the
+        same, bit for bit, as without pruning unless the best start itself trailed by
+        more than the margin at a check and was forecast not to catch up (a heuristic
+        risk: the forecast assumes linear convergence).  Pruned starts are flagged in
+        ``MultiStartResult.pruned``, keep the memberships, centroids and objective of
+        their last iteration and are never ``converged``; count them as not at the
+        optimum.
+    prune_margin : float, default PRUNE_MARGIN
+        Relative margin of the pruning rule, ``> 0``.  Far above the tolerance that
+        decides whether two starts reached the same optimum (1e-6), so a start still
+        heading for the best optimum is kept while its forecast is within the margin.
+    prune_window : int, default PRUNE_WINDOW
+        Iterations w between pruning checks and between the three objectives of the
+        forecast, ``>= 1``.  With ``"fast"`` and several threads the threads meet only
+        at these checks.
 
     Returns
     -------
@@ -798,11 +1010,19 @@ def fuzzy_cmeans(
     Warns
     -----
     ConvergenceWarning
-        When a start stops at ``max_iter`` before reaching ``tol``.
+        When a start that was not pruned stops at ``max_iter`` before a stopping test.
 
     References
     ----------
     Bezdek, J. C. (1981). *Pattern Recognition with Fuzzy Objective Function Algorithms*.
+    Aitken, A. C. (1926). On Bernoulli's numerical solution of algebraic equations.
+    *Proceedings of the Royal Society of Edinburgh* 46:289-305.
+    Böhning, D., Dietz, E., Schaub, R., Schlattmann, P. & Lindsay, B. G. (1994). The
+    distribution of the likelihood ratio for mixtures of densities from the one-parameter
+    exponential family. *Annals of the Institute of Statistical Mathematics* 46(2):373-388.
+    McNicholas, P. D., Murphy, T. B., McDaid, A. F. & Frost, D. (2010). Serial and parallel
+    implementations of model-based clustering via parsimonious Gaussian mixture models.
+    *Computational Statistics & Data Analysis* 54(3):711-723.
     """
     X = _check_data(X)
     n_samples = X.shape[0]
@@ -810,31 +1030,43 @@ def fuzzy_cmeans(
         initial_array = np.asarray(initial_memberships)
         n_starts = 1 if initial_array.ndim == 2 else int(initial_array.shape[0])
     _check_parameters(n_samples, n_clusters, m, tol, max_iter, n_starts, init, precision)
+    _check_stopping(objective_tol, prune, prune_margin, prune_window, n_threads)
     m = float(m)
+    n_clusters, n_starts, max_iter = int(n_clusters), int(n_starts), int(max_iter)
     compiled = precision == "fast" and _kernels is not None
     dtype = None if compiled else _ELEMENTWISE_DTYPES[precision]
     threads = n_threads or _default_threads()
+    rule = _PruneRule(float(prune_margin), int(prune_window)) if prune else None
     generator = np.random.default_rng(rng)
-    if initial_memberships is None:
-        initial = _INITIALISERS[init](X, int(n_clusters), int(n_starts), m, generator, dtype)
-    else:
+    initial = None
+    if initial_memberships is not None:
         initial = _check_initial_memberships(initial_memberships, n_starts, n_samples, n_clusters)
     if compiled:
-        with _KernelThreads(threads):
-            centroids = _initial_centroids(X, initial, m)
-            # Rebinding `initial` lets an array made here go before the iterations start.
-            initial = _kernel_blocks(initial, threads)
-            memberships, objectives, n_iter, converged = _compiled_run(
-                X, centroids, initial, m, float(tol), int(max_iter), threads
-            )
-        del initial
-    else:
-        centroids, memberships, objectives, n_iter, converged = _run_starts(
-            X, initial, m, float(tol), int(max_iter), dtype, threads
+        centroids, memberships, objectives, n_iter, converged, pruned = _compiled_fit(
+            X,
+            n_clusters,
+            n_starts,
+            m,
+            init=init,
+            generator=generator,
+            initial=initial,
+            tol=float(tol),
+            objective_tol=float(objective_tol),
+            max_iter=max_iter,
+            rule=rule,
+            n_threads=threads,
         )
-    if tol > 0 and not converged.all():
+    else:
+        if initial is None:
+            initial = _INITIALISERS[init](X, n_clusters, n_starts, m, generator, dtype)
+        centroids, memberships, objectives, n_iter, converged, pruned = _run_starts(
+            X, initial, m, float(tol), max_iter, dtype, threads, float(objective_tol), rule
+        )
+    del initial
+    stopped_early = ~converged & ~pruned
+    if (tol > 0 or objective_tol > 0) and stopped_early.any():
         warnings.warn(
-            f"{int((~converged).sum())} of {n_starts} fuzzy c-means start(s) stopped at "
+            f"{int(stopped_early.sum())} of {n_starts} fuzzy c-means start(s) stopped at "
             f"max_iter={max_iter} with a membership change still above tol={tol}; "
             "raise max_iter or tol",
             ConvergenceWarning,
@@ -848,6 +1080,7 @@ def fuzzy_cmeans(
         converged=converged,
         m=m,
         best_index=int(np.argmin(objectives)),
+        pruned=pruned,
     )
 
 
