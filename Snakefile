@@ -1,26 +1,24 @@
-# gloam: soft (fuzzy c-means) clustering of gene-expression time courses.
-# Run the demo with `snakemake --cores 2`; see README.md for the config reference.
+# gloam from a clone: `snakemake --cores 2` runs the demo (see README.md). The workflow itself
+# lives in the package (src/gloam/workflow/, also reachable as workflow/), so that an install
+# carries it; this file puts the clone's config/config.yaml (when present) under whatever
+# --configfile and --config give, and uses the workflow as a module, as any host workflow can.
 
-from snakemake.utils import min_version
+import sys
 
-min_version("9.0")
+from gloam.errors import GloamError
+from gloam.planning import add_config_file
 
-
-configfile: "config/config.yaml"
-
-
-report: "workflow/report/workflow.rst"
-
-
-include: "workflow/rules/common.smk"
-include: "workflow/rules/prepare.smk"
-include: "workflow/rules/scan.smk"
-include: "workflow/rules/select.smk"
-include: "workflow/rules/export.smk"
-include: "workflow/rules/summary.smk"
+try:
+    add_config_file(config, "config/config.yaml")
+except GloamError as error:
+    sys.exit(f"gloam: error: {error}")
 
 
-rule all:
-    input:
-        get_final_outputs,
-    default_target: True
+module gloam:
+    snakefile:
+        "src/gloam/workflow/Snakefile"
+    config:
+        config
+
+
+use rule * from gloam

@@ -27,3 +27,17 @@ def planned_jobs(output: str) -> dict[str, int]:
     """Rule -> job count from Snakemake's 'Job stats' table."""
     table = output.split("Job stats:", 1)[1].split("total", 1)[0]
     return {rule: int(n) for rule, n in re.findall(r"^(\w+)\s+(\d+)$", table, re.MULTILINE)}
+
+
+WORKFLOW = Path(__file__).resolve().parents[1] / "src" / "gloam" / "workflow"
+
+
+def local_rules() -> set[str]:
+    """Rules the workflow runs on the controller (``localrule: True``), read from its files."""
+    rules = set()
+    for path in [WORKFLOW / "Snakefile", *sorted((WORKFLOW / "rules").glob("*.smk"))]:
+        text = path.read_text(encoding="utf-8")
+        for match in re.finditer(r"^rule (\w+):\n((?:[ \t]+.*\n|\n)*)", text, re.MULTILINE):
+            if re.search(r"^\s+localrule:\s*True", match.group(2), re.MULTILINE):
+                rules.add(match.group(1))
+    return rules

@@ -477,6 +477,15 @@ def test_lint_reports_nothing(tmp_path):
         ({"genesets": {"thresholds": [0.7, 0.70000001]}}, "genesets.thresholds"),
         ({"bogus": 1}, "'bogus' was unexpected"),
         ({"datasets": "missing.tsv"}, "missing.tsv"),
+        # Every path a user gives must be a folder of its own: "" and "/" would put results
+        # into the file system root, "~" into the home folder.
+        ({"results_dir": ""}, "results_dir"),
+        ({"results_dir": "/"}, "file system root"),
+        ({"results_dir": "~"}, "home folder"),
+        ({"demo": {"out_dir": ".."}, "results_dir": "r"}, "demo.out_dir"),
+        # YAML's .nan and .inf: refused at planning with the range the code can use.
+        ({"scan": {"tol": float("nan")}}, "a finite number in [0, 1]"),
+        ({"preparation": {"pseudocount": float("inf")}}, "preparation.pseudocount"),
     ],
 )
 def test_bad_config_fails_with_a_clear_message(tmp_path, change, expected):
@@ -490,6 +499,65 @@ def test_bad_config_fails_with_a_clear_message(tmp_path, change, expected):
     # One line, no stack frames, no schema or config dump.
     assert "Traceback" not in message and 'File "' not in message
     assert len(message.splitlines()) <= 3, message
+    assert written_by_the_workflow(directory) == set(), "a refused config wrote files"
+
+
+def written_by_the_workflow(directory: Path) -> set[str]:
+    """Files and folders in ``directory`` besides the test's inputs and Snakemake's own."""
+    inputs = {"config.yaml", "datasets.tsv", "config", "demo", ".snakemake"}
+    return {path.name for path in directory.iterdir()} - inputs
+
+
+def test_results_dir_that_is_a_file_is_one_line(tmp_path):
+    directory = write_workdir(tmp_path / "run", {**BASE_CONFIG, "results_dir": "taken"})
+    (directory / "taken").write_text("not a folder\n", encoding="utf-8")
+    result = snakemake(directory, "--dry-run", check=False)
+    message = result.stdout + result.stderr
+    assert result.returncode != 0
+    (line,) = [line for line in message.splitlines() if line.startswith("gloam: error:")]
+    assert "results_dir 'taken' is a file, not a folder" in line
+    assert "Traceback" not in message and "NotADirectoryError" not in message
+    assert (directory / "taken").read_text(encoding="utf-8") == "not a folder\n"
+
+
+def clone_like(directory: Path, config_text: str) -> Path:
+    """A working folder with config/config.yaml, as in a clone, and a tiny datasets table."""
+    write_workdir(directory, BASE_CONFIG)
+    (directory / "config.yaml").unlink()
+    (directory / "config").mkdir()
+    (directory / "config" / "config.yaml").write_text(config_text, encoding="utf-8")
+    return directory
+
+
+def dry_run_in(directory: Path, *args: str) -> subprocess.CompletedProcess:
+    command = [sys.executable, "-m", "snakemake", "--snakefile", str(SNAKEFILE), "-n", *args]
+    return subprocess.run(command, cwd=directory, capture_output=True, text=True, timeout=600)
+
+
+def test_an_empty_config_file_plans_the_demo(tmp_path):
+    """The schema: every key has a default, so an empty config file runs the built-in demo."""
+    directory = clone_like(tmp_path / "run", "# nothing set\n")
+    result = dry_run_in(directory, "--cores", "1")
+    assert result.returncode == 0, result.stdout + result.stderr
+    assert "results/cold_leaf/scan/c10.npz" in result.stdout
+    assert "demo_data/counts.tsv" in result.stdout
+
+
+def test_a_yaml_syntax_error_names_the_file_and_line(tmp_path):
+    directory = clone_like(tmp_path / "run", "seed: 3\nscan: {n_starts: [1, 2\n")
+    result = dry_run_in(directory, "--cores", "1")
+    message = result.stdout + result.stderr
+    assert result.returncode != 0
+    (line,) = [line for line in message.splitlines() if line.startswith("gloam: error:")]
+    assert "'config/config.yaml'" in line and "line 3" in line
+    assert "Traceback" not in message
+    assert written_by_the_workflow(directory) == set()
+
+    from gloam.cli import main
+
+    with pytest.raises(SystemExit) as exit_info:
+        main(["run", "--configfile", str(directory / "config" / "config.yaml"), "--", "-n"])
+    assert exit_info.value.code == 2
 
 
 def test_a_dataset_whose_files_do_not_exist_is_named_before_any_job(tmp_path):
@@ -594,6 +662,57 @@ def test_gloam_run_drives_snakemake(finished, capsys):
         main(["run", "--snakefile", str(finished / "missing.smk")])
     assert exit_info.value.code == 2
     assert "not found" in capsys.readouterr().err
+
+
+def test_gloam_run_refuses_a_second_run_and_stops_on_ctrl_c_in_one_line(tmp_path):
+    """While `gloam run` works, `gloam run -- --unlock` in the same folder is refused (the
+    README's restart steps would break the active run's lock); Ctrl-C (SIGINT to the
+    foreground process group, as a terminal sends it) ends the run with one line and exit
+    status 130 (128 + SIGINT, the shell's convention), without a traceback."""
+    config = {
+        **BASE_CONFIG,
+        # tol=0 makes every start run exactly max_iter iterations: scans take seconds.
+        "scan": {"min_clusters": 2, "max_clusters": 6, "n_starts": 40, "tol": 0, "max_iter": 400},
+    }
+    directory = write_workdir(tmp_path / "run", config)
+    gloam = [sys.executable, "-m", "gloam.cli", "run", "--cores", "2"]
+    gloam += ["--configfile", str(directory / "config.yaml")]
+    process = subprocess.Popen(
+        [*gloam, "--", "--directory", str(directory)],
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
+        start_new_session=True,
+    )
+    logs = directory / "logs" / RUN
+    deadline = time.monotonic() + 180
+    try:
+        while not (logs.is_dir() and list(logs.glob("scan_c*.log"))):
+            assert process.poll() is None, process.communicate()
+            assert time.monotonic() < deadline, "no scan job started within 180 s"
+            time.sleep(0.2)
+        second = subprocess.run(
+            [*gloam, "--", "--directory", str(directory), "--unlock"],
+            capture_output=True,
+            text=True,
+            timeout=120,
+        )
+        assert second.returncode == 2
+        assert second.stderr.startswith("gloam: error: another gloam run (process ")
+        assert len(second.stderr.splitlines()) == 1, second.stderr
+        os.killpg(process.pid, signal.SIGINT)
+        stdout, stderr = process.communicate(timeout=300)
+    finally:
+        with contextlib.suppress(ProcessLookupError):
+            os.killpg(process.pid, signal.SIGKILL)
+    assert process.returncode == 130, stderr
+    assert "Traceback" not in stdout + stderr and "KeyboardInterrupt" not in stdout + stderr
+    assert stderr.splitlines()[-1] == (
+        "gloam: interrupted: Snakemake stopped its jobs; finished results are kept, and the "
+        "same command continues the run"
+    )
+    assert stderr.count("gloam: interrupted") == 1
+    assert not (directory / ".snakemake" / "gloam-run.lock").exists()
 
 
 # ------------------------------------------------------------------ default settings, no structure

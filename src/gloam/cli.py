@@ -3,7 +3,7 @@
 Each subcommand is a pair of functions: ``_add_<name>(subparsers)`` declares its options
 and ``_run_<name>(args)`` does the work; :data:`SUBCOMMANDS` lists the declaring functions.
 A :class:`~gloam.errors.GloamError` from any subcommand becomes one line on stderr and exit
-status 2, never a traceback.
+status 2, and Ctrl-C one line and exit status 130, never a traceback.
 """
 
 from __future__ import annotations
@@ -18,7 +18,10 @@ from pathlib import Path
 from gloam import __version__
 from gloam.errors import GloamError, report_and_exit, show_warning
 
-__all__ = ["main", "build_parser", "PREPARE_OUTPUTS"]
+__all__ = ["main", "build_parser", "PREPARE_OUTPUTS", "RUN_LOCK", "INTERRUPTED_EXIT_CODE"]
+
+#: Exit status after Ctrl-C (128 + SIGINT, the shell's convention).
+INTERRUPTED_EXIT_CODE = 130
 
 #: File names written by ``gloam prepare`` inside ``--out-dir``.
 PREPARE_OUTPUTS = {
@@ -418,35 +421,180 @@ def _add_run(subparsers: argparse._SubParsersAction) -> None:
         allow_abbrev=False,  # a shortened option name is refused, never guessed
         help="run the Snakemake workflow (the demo unless the config says otherwise)",
         description=(
-            "Run the gloam Snakemake workflow of a checkout: `gloam run --cores 2` in the "
-            "checkout runs the demo. Arguments after `--` go to Snakemake unchanged "
-            "(e.g. -- --dry-run, -- --profile config/profiles/slurm)."
+            "Run the gloam Snakemake workflow that ships with this gloam, from any folder: "
+            "`gloam run --cores 2` runs the demo, or the config/config.yaml of the folder when "
+            "there is one. Arguments after `--` go to Snakemake (e.g. -- --dry-run, -- --profile "
+            "slurm: `local` and `slurm` name the profiles installed with gloam). Refused while "
+            "another `gloam run` is active in the folder."
         ),
     )
     parser.add_argument(
-        "--snakefile", type=Path, default=Path("Snakefile"), help="the workflow (./Snakefile)"
+        "--snakefile",
+        type=Path,
+        help="another workflow to run (default: the one installed with gloam)",
     )
-    parser.add_argument("--configfile", type=Path, help="config file (config/config.yaml)")
+    parser.add_argument(
+        "--configfile",
+        type=Path,
+        help="config file (default: config/config.yaml of the working folder, if any)",
+    )
     parser.add_argument("--cores", default="all", help="cores to use (all)")
     parser.add_argument("snakemake_args", nargs=argparse.REMAINDER, help="passed to Snakemake")
     parser.set_defaults(run=_run_workflow)
 
 
-def _run_workflow(args: argparse.Namespace) -> int:
+#: Lock file of an active ``gloam run``, inside Snakemake's folder of the working directory.
+RUN_LOCK = Path(".snakemake") / "gloam-run.lock"
+
+#: Snakemake options that run no job and touch no lock, so they may run beside an active run.
+_READ_ONLY_OPTIONS = frozenset(
+    {
+        *("-n", "--dry-run", "--dryrun", "--lint", "--list-rules", "--report"),
+        *("--dag", "--rulegraph", "--summary", "-S", "--detailed-summary", "-D"),
+    }
+)
+
+
+def _option_value(arguments: Sequence[str], *names: str) -> str | None:
+    """The value of the last of ``names`` in ``arguments`` (``--name value`` or ``--name=v``)."""
+    found = None
+    for index, argument in enumerate(arguments):
+        for name in names:
+            if argument == name and index + 1 < len(arguments):
+                found = arguments[index + 1]
+            elif argument.startswith(f"{name}="):
+                found = argument.split("=", 1)[1]
+    return found
+
+
+def _process_alive(pid: int) -> bool:
+    import os
+
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:  # another user's process
+        return True
+    return True
+
+
+def _acquire_run_lock(lock: Path) -> None:
+    """Create ``lock`` for this process; refuse if a live ``gloam run`` holds it.
+
+    A lock left by a run that was killed (its process is gone) is taken over. A lock from
+    another machine cannot be checked, so it is respected.
+    """
+    import os
+    import socket
+
+    host = socket.gethostname()
+    lock.parent.mkdir(parents=True, exist_ok=True)
+    for _ in range(2):
+        try:
+            descriptor = os.open(lock, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o644)
+        except FileExistsError:
+            try:
+                pid_text, _, lock_host = lock.read_text(encoding="utf-8").strip().partition(" ")
+                pid = int(pid_text)
+            except (OSError, ValueError):
+                pid, lock_host = -1, host
+            if pid > 0 and (lock_host != host or _process_alive(pid)):
+                where = "" if lock_host == host else f" on {lock_host}"
+                raise GloamError(
+                    f"another gloam run (process {pid}{where}) is active in this folder; wait "
+                    "for it to end or stop it (Ctrl-C) before starting, unlocking or "
+                    f"rerunning; if no run is active, delete {str(lock)!r}"
+                ) from None
+            lock.unlink(missing_ok=True)  # left by a run that was killed
+            continue
+        with os.fdopen(descriptor, "w", encoding="utf-8") as handle:
+            handle.write(f"{os.getpid()} {host}\n")
+        return
+    raise GloamError(f"cannot take the run lock {str(lock)!r}; delete it and start again")
+
+
+def _run_snakemake(command: list[str]) -> int:
+    """Run Snakemake in its own process group; Ctrl-C stops it cleanly, without a traceback.
+
+    SIGINT, SIGTERM and SIGHUP sent to ``gloam run`` go to Snakemake and its local jobs once,
+    as the terminal would send them; Snakemake then stops its jobs and leaves finished
+    results in place. Returns Snakemake's exit status, or 130 after an interruption.
+    """
+    import os
+    import signal
     import subprocess
 
-    if not args.snakefile.is_file():
-        raise GloamError(
-            f"workflow {str(args.snakefile)!r} not found; run `gloam run` inside a gloam "
-            "checkout or give --snakefile path/to/Snakefile"
+    process = subprocess.Popen(command, process_group=0)
+    received: list[int] = []
+
+    def forward(number: int, _frame: object) -> None:
+        received.append(number)
+        try:
+            os.killpg(process.pid, number)
+        except ProcessLookupError:
+            pass
+
+    numbers = (signal.SIGINT, signal.SIGTERM, signal.SIGHUP)
+    previous = {number: signal.signal(number, forward) for number in numbers}
+    try:
+        status = process.wait()
+    finally:
+        for number, handler in previous.items():
+            signal.signal(number, handler)
+    if received:
+        print(
+            "gloam: interrupted: Snakemake stopped its jobs; finished results are kept, and "
+            "the same command continues the run",
+            file=sys.stderr,
         )
-    command = [sys.executable, "-m", "snakemake", "--snakefile", str(args.snakefile)]
-    command += ["--cores", str(args.cores)]
-    if args.configfile is not None:
-        command += ["--configfile", str(args.configfile)]
+        return 130
+    return status
+
+
+def _packaged_profiles(arguments: list[str]) -> list[str]:
+    """``--profile local`` or ``--profile slurm``: the profiles installed with gloam, unless
+    the folder holds a profile of that name."""
+    from gloam.planning import PROFILES_DIR
+
+    result = list(arguments)
+    for index, argument in enumerate(result[:-1]):
+        name = result[index + 1]
+        if argument == "--profile" and not Path(name).exists() and (PROFILES_DIR / name).is_dir():
+            result[index + 1] = str(PROFILES_DIR / name)
+    return result
+
+
+def _run_workflow(args: argparse.Namespace) -> int:
+    from gloam import planning
+
+    snakefile = args.snakefile if args.snakefile is not None else planning.SNAKEFILE
+    if not snakefile.is_file():
+        raise GloamError(
+            f"workflow {str(snakefile)!r} not found; give --snakefile path/to/Snakefile, or "
+            "leave it out to run the workflow installed with gloam"
+        )
     extra = list(args.snakemake_args)
-    command += extra[1:] if extra[:1] == ["--"] else extra
-    return subprocess.call(command)
+    extra = _packaged_profiles(extra[1:] if extra[:1] == ["--"] else extra)
+    directory = Path(_option_value(extra, "--directory", "-d") or ".")
+    configfile = args.configfile
+    if configfile is None and (directory / "config" / "config.yaml").is_file():
+        configfile = directory / "config" / "config.yaml"
+    command = [sys.executable, "-m", "snakemake", "--snakefile", str(snakefile)]
+    command += ["--cores", str(args.cores)]
+    # Read here, so that a YAML mistake names its line and an empty file runs the defaults
+    # (Snakemake refuses an empty config file).
+    if configfile is not None and planning.read_config_file(configfile):
+        command += ["--configfile", str(configfile.resolve())]
+    command += extra
+    if _READ_ONLY_OPTIONS.isdisjoint(extra):
+        lock = directory / RUN_LOCK
+        _acquire_run_lock(lock)
+        try:
+            return _run_snakemake(command)
+        finally:
+            lock.unlink(missing_ok=True)
+    return _run_snakemake(command)
 
 
 #: One declaring function per subcommand; add a new subcommand by appending here.
@@ -476,7 +624,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     """Entry point of the ``gloam`` console script; returns the exit status.
 
     User errors (:class:`~gloam.errors.GloamError`) are printed as one line and end the
-    process with status 2.
+    process with status 2; Ctrl-C ends it with one line and status 130 (128 + SIGINT).
     """
     args = build_parser().parse_args(argv)
     with warnings.catch_warnings():
@@ -485,6 +633,9 @@ def main(argv: Sequence[str] | None = None) -> int:
             return int(args.run(args))
         except GloamError as error:
             report_and_exit(error)
+        except KeyboardInterrupt:
+            print("gloam: interrupted (Ctrl-C)", file=sys.stderr)
+            raise SystemExit(INTERRUPTED_EXIT_CODE) from None
 
 
 if __name__ == "__main__":

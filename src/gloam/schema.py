@@ -1,17 +1,24 @@
 """One-line descriptions of configuration mistakes found by a JSON schema.
 
 The workflow validates its config and datasets table against the schemas in
-``workflow/schemas/`` (JSON Schema 2020-12, written as YAML). A schema checker reports a
+``gloam/workflow/schemas/`` (JSON Schema 2020-12, written as YAML). A schema checker reports a
 violation with the whole schema and document attached; a user needs one sentence: which key,
-what is wrong with its value, and what the key accepts (its ``description`` in the schema).
+what is wrong with its value, and what the key accepts (its ``description`` in the schema and
+the range of numbers the code can use).
+
+A JSON Schema ``number`` admits NaN and infinities when the document comes from YAML
+(``.nan``, ``.inf``), and no bound can refuse NaN (every comparison with it is false). Here a
+``number`` is a finite one, so ``scan.tol: .nan`` is refused like any other bad value.
 """
 
 from __future__ import annotations
 
+import copy
+import math
 from collections.abc import Mapping, Sequence
 from typing import Any
 
-__all__ = ["describe_schema_violation", "key_path"]
+__all__ = ["describe_schema_violation", "key_path", "fill_defaults", "validator_class"]
 
 
 def key_path(path: Sequence[Any]) -> str:
@@ -20,6 +27,52 @@ def key_path(path: Sequence[Any]) -> str:
     for part in path:
         text += f"[{part}]" if isinstance(part, int) else (f".{part}" if text else str(part))
     return text
+
+
+def _is_finite_number(checker: Any, instance: Any) -> bool:
+    number = isinstance(instance, (int, float)) and not isinstance(instance, bool)
+    return number and (isinstance(instance, int) or math.isfinite(instance))
+
+
+def validator_class(*, defaults: bool = False) -> Any:
+    """The Draft 2020-12 validator class in which a ``number`` is finite.
+
+    Parameters
+    ----------
+    defaults : bool
+        Also fill in every missing property that has a ``default`` (a copy of it) while
+        validating, as Snakemake's ``validate`` does; the instance is changed in place.
+    """
+    from jsonschema import Draft202012Validator, validators
+
+    base = Draft202012Validator
+    checker = base.TYPE_CHECKER.redefine("number", _is_finite_number)
+    keywords = dict(base.VALIDATORS)
+    if defaults:
+        check_properties = base.VALIDATORS["properties"]
+
+        def properties_with_defaults(validator, properties, instance, schema):
+            if isinstance(instance, dict):
+                for name, subschema in properties.items():
+                    if "default" in subschema:
+                        instance.setdefault(name, copy.deepcopy(subschema["default"]))
+            yield from check_properties(validator, properties, instance, schema)
+
+        keywords["properties"] = properties_with_defaults
+    return validators.extend(base, keywords, type_checker=checker)
+
+
+def fill_defaults(instance: Any, schema: Mapping[str, Any]) -> str | None:
+    """Fill in the defaults of ``schema`` in ``instance`` (in place) and validate it.
+
+    Returns
+    -------
+    str or None
+        None when ``instance`` is valid, else the first violation's message (use
+        :func:`describe_schema_violation` for the one a user reads).
+    """
+    errors = list(validator_class(defaults=True)(schema).iter_errors(instance))
+    return errors[0].message if errors else None
 
 
 def _resolve(node: Mapping[str, Any], root: Mapping[str, Any]) -> Mapping[str, Any]:
@@ -54,12 +107,38 @@ def _schema_of(path: Sequence[Any], root: Mapping[str, Any]) -> Mapping[str, Any
     return node
 
 
+def _range(node: Mapping[str, Any]) -> str:
+    """``"a finite number in (0, 1]"`` for a numeric schema, ``""`` for any other."""
+    kinds = node.get("type")
+    kinds = [kinds] if isinstance(kinds, str) else list(kinds or [])
+    if "number" in kinds:
+        what = "a finite number"
+    elif "integer" in kinds:
+        what = "a whole number"
+    else:
+        return ""
+    low = node.get("exclusiveMinimum", node.get("minimum"))
+    high = node.get("exclusiveMaximum", node.get("maximum"))
+    if low is None and high is None:
+        return what
+    opening = "(" if "exclusiveMinimum" in node else "["
+    closing = ")" if "exclusiveMaximum" in node else "]"
+    low_text = "-inf" if low is None else f"{low:g}" if isinstance(low, float) else str(low)
+    high_text = "inf" if high is None else f"{high:g}" if isinstance(high, float) else str(high)
+    text = f"{what} in {opening}{low_text}, {high_text}{closing}"
+    return text + (" or null" if "null" in kinds else "")
+
+
 def _description(node: Mapping[str, Any] | None) -> str:
     if not node:
         return ""
     text = " ".join(str(node.get("description", "")).split())
     if not text and "enum" in node:
         text = "one of " + ", ".join(repr(value) for value in node["enum"])
+    ranges = [_range(node)] + [_range(option) for option in node.get("oneOf", [])]
+    ranges = [part for part in ranges if part]
+    if ranges:
+        text = f"{text} ({'; or '.join(ranges)})" if text else "; or ".join(ranges)
     return text
 
 
@@ -83,10 +162,9 @@ def describe_schema_violation(
         ``"<name> key <path>: <problem>; <what the key accepts>"``, or None if the instance
         is valid.
     """
-    from jsonschema import Draft202012Validator
     from jsonschema.exceptions import best_match
 
-    error = best_match(Draft202012Validator(schema).iter_errors(instance))
+    error = best_match(validator_class()(schema).iter_errors(instance))
     if error is None:
         return None
     path = list(error.absolute_path)

@@ -64,14 +64,14 @@ rule export:
         "benchmarks/{run}/export.tsv"
     group:
         "finish"
-    threads: get_threads("export", 1)
+    threads: PLAN.threads("export")
     resources:
-        mem_mb=mem_mb_for("export", 800, 6),
-        runtime=runtime_for("export", 3, 0.05),
+        mem_mb=resource("export", "mem_mb"),
+        runtime=resource("export", "runtime"),
     conda:
         "../envs/gloam.yaml"
     script:
-        "../../scripts/rule_export.py"
+        "../scripts/rule_export.py"
 
 
 rule core_genes:
@@ -98,19 +98,19 @@ rule core_genes:
         profiles_pdf=run_path("{run}", "figures/profiles.pdf"),
         profiles_svg=run_path("{run}", "figures/profiles.svg"),
     params:
-        thresholds=config["genesets"]["thresholds"],
-        time_unit=config["figures"]["time_unit"],
+        thresholds=SETTINGS["genesets"]["thresholds"],
+        time_unit=SETTINGS["figures"]["time_unit"],
     log:
         "logs/{run}/core_genes.log",
     benchmark:
         "benchmarks/{run}/core_genes.tsv"
     group:
         "finish"
-    threads: get_threads("core_genes", 1)
+    threads: PLAN.threads("core_genes")
     resources:
-        mem_mb=mem_mb_for("core_genes", 800, 6),
-        runtime=runtime_for("core_genes", 3, 0.05),
+        mem_mb=resource("core_genes", "mem_mb"),
+        runtime=resource("core_genes", "runtime"),
     conda:
         "../envs/gloam.yaml"
     script:
-        "../../scripts/rule_core_genes.py"
+        "../scripts/rule_core_genes.py"

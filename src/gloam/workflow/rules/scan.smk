@@ -12,16 +12,16 @@ rule scan:
         scan=run_path("{run}", "scan/c{c}.npz"),
     params:
         settings=get_start_settings,
-        seed=config["seed"],
+        seed=SETTINGS["seed"],
     log:
         "logs/{run}/scan_c{c}.log",
     benchmark:
         "benchmarks/{run}/scan_c{c}.tsv"
-    threads: get_threads("scan", 1)
+    threads: PLAN.threads("scan")
     resources:
-        mem_mb=scan_mem_mb,
-        runtime=scan_runtime,
+        mem_mb=resource("scan", "mem_mb"),
+        runtime=resource("scan", "runtime"),
     conda:
         "../envs/gloam.yaml"
     script:
-        "../../scripts/rule_scan.py"
+        "../scripts/rule_scan.py"

@@ -5,23 +5,25 @@
 # repeats the preparation, which costs seconds, while the scans rerun in any case.
 
 
+# A second's work: it runs on the controlling machine, never as a cluster job.
 rule demo_data:
     output:
-        **DEMO_FILES,
+        **PLAN.demo_files,
     params:
-        seed=config["demo"]["seed"],
-        n_genes=config["demo"]["n_genes"],
-        n_replicates=config["demo"]["n_replicates"],
+        seed=SETTINGS["demo"]["seed"],
+        n_genes=SETTINGS["demo"]["n_genes"],
+        n_replicates=SETTINGS["demo"]["n_replicates"],
     log:
         "logs/demo_data.log",
-    threads: get_threads("demo_data", 1)
+    localrule: True
+    threads: PLAN.threads("demo_data")
     resources:
-        mem_mb=lambda wildcards, attempt: attempt * (_override("demo_data", "mem_mb") or 1000),
-        runtime=lambda wildcards, attempt: attempt * (_override("demo_data", "runtime") or 10),
+        mem_mb=resource("demo_data", "mem_mb"),
+        runtime=resource("demo_data", "runtime"),
     conda:
         "../envs/gloam.yaml"
     script:
-        "../../scripts/rule_demo_data.py"
+        "../scripts/rule_demo_data.py"
 
 
 rule prepare:
@@ -53,16 +55,16 @@ rule prepare:
     params:
         settings=get_preparation_params,
         fuzzifier=get_fuzzifier_settings,
-        seed=config["seed"],
+        seed=SETTINGS["seed"],
     log:
         "logs/{run}/prepare.log",
     benchmark:
         "benchmarks/{run}/prepare.tsv"
-    threads: get_threads("prepare", 2)
+    threads: PLAN.threads("prepare")
     resources:
-        mem_mb=mem_mb_for("prepare", 1000, 12),
-        runtime=runtime_for("prepare", 10, 0.1),
+        mem_mb=resource("prepare", "mem_mb"),
+        runtime=resource("prepare", "runtime"),
     conda:
         "../envs/gloam.yaml"
     script:
-        "../../scripts/rule_prepare.py"
+        "../scripts/rule_prepare.py"

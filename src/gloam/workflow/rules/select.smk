@@ -23,16 +23,16 @@ rule select:
         consensus=run_path("{run}", "consensus.npz"),
     params:
         settings=get_selection_settings,
-        seed=config["seed"],
+        seed=SETTINGS["seed"],
     log:
         "logs/{run}/select.log",
     benchmark:
         "benchmarks/{run}/select.tsv"
-    threads: get_threads("select", 1)
+    threads: PLAN.threads("select")
     resources:
-        mem_mb=select_mem_mb,
-        runtime=runtime_for("select", 5, 0.05),
+        mem_mb=resource("select", "mem_mb"),
+        runtime=resource("select", "runtime"),
     conda:
         "../envs/gloam.yaml"
     script:
-        "../../scripts/rule_select.py"
+        "../scripts/rule_select.py"

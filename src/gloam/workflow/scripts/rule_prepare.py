@@ -1,6 +1,19 @@
+# ruff: noqa: E402 -- gloam is imported once the package root is on the path
 """Snakemake rule ``prepare``: validate, normalise, select and standardise one run's matrix,
 then choose the fuzzifier m for it, record the randomised-data curve, and write the scan
 jobs' input (the matrix with its m and the replicates for resampling)."""
+
+import signal
+import sys
+from pathlib import Path
+
+job = snakemake  # noqa: F821 -- injected by Snakemake's script directive
+# Ctrl-C reaches the jobs too: stop with status 130 (128 + SIGINT) and no traceback; Snakemake
+# reports the interruption, and unfinished outputs never carry their final names.
+signal.signal(signal.SIGINT, lambda *_: sys.exit(130))
+# The gloam this script belongs to (<package root>/gloam/workflow/scripts), the controller's,
+# comes first: never another gloam that the job's environment may hold.
+sys.path.insert(0, str(Path(job.scriptdir).resolve().parents[2]))
 
 from gloam.errors import exit_on_user_error
 from gloam.stages import (
@@ -9,8 +22,6 @@ from gloam.stages import (
     write_fuzzifier_choice,
     write_scan_input,
 )
-
-job = snakemake  # noqa: F821 -- injected by Snakemake's script directive
 
 
 def prepare_and_choose_m() -> None:

@@ -1,0 +1,32 @@
+# ruff: noqa: E402 -- gloam is imported once the package root is on the path
+"""Snakemake rule ``core_genes``: gene sets at each threshold and the cluster-profile figure."""
+
+import signal
+import sys
+from pathlib import Path
+
+job = snakemake  # noqa: F821 -- injected by Snakemake's script directive
+# Ctrl-C reaches the jobs too: stop with status 130 (128 + SIGINT) and no traceback; Snakemake
+# reports the interruption, and unfinished outputs never carry their final names.
+signal.signal(signal.SIGINT, lambda *_: sys.exit(130))
+# The gloam this script belongs to (<package root>/gloam/workflow/scripts), the controller's,
+# comes first: never another gloam that the job's environment may hold.
+sys.path.insert(0, str(Path(job.scriptdir).resolve().parents[2]))
+
+from gloam.errors import exit_on_user_error
+from gloam.stages import export_core_genes, rule_environment
+
+out = job.output
+
+with rule_environment(job.log[0], job.threads):
+    exit_on_user_error(
+        lambda: export_core_genes(
+            job.input.prepared,
+            job.input.consensus,
+            job.params.thresholds,
+            job.params.time_unit,
+            genesets=out.genesets,
+            profiles_figure=(out.profiles_png, out.profiles_pdf, out.profiles_svg),
+            prefix=job.wildcards.run,
+        )
+    )
