@@ -79,7 +79,7 @@ __all__ = [
     "figure_fuzzifier",
     "figure_overview",
     "run_comparison",
-    "COMPARISON_FILES",
+    "COMPARISON_FILES_WHEN_COMPARED",
     "TRANSITION_COLUMNS",
     "summarise_runs",
     "RESULT_KEY",
@@ -1349,13 +1349,18 @@ def summarise_runs(
 
 # ------------------------------------------------------------------ conditions compared
 
-#: Files a comparison of conditions writes into its folder (see :func:`run_comparison`).
-COMPARISON_FILES = (
+#: What the folder of a comparison holds when the conditions were compared (otherwise only
+#: ``selection.json``; see :func:`run_comparison`).
+COMPARISON_FILES_WHEN_COMPARED = (
+    "selection.json",
     "responses.tsv",
     "transitions.tsv",
     "centroids.tsv",
     "validity.tsv",
-    "selection.json",
+    "genesets",
+    "transitions.png",
+    "transitions.pdf",
+    "transitions.svg",
 )
 #: Columns of ``transitions.tsv``.
 TRANSITION_COLUMNS = (
@@ -1368,8 +1373,9 @@ TRANSITION_COLUMNS = (
 )
 
 
-def _condition_test(prepared: PathLike, gene_report: PathLike, fdr: float) -> Any:
-    """The interaction test of the prepared genes, from the preparation's gene report."""
+def _condition_test(prepared: PathLike, gene_report: PathLike, fdr: float) -> tuple[Any, str]:
+    """The interaction test of the prepared genes (from the preparation's gene report) and
+    their per-condition effect sizes; or None and the reason there is nothing to compare."""
     import anndata
 
     from gloam.compare import InteractionTest, condition_profiles
@@ -1379,16 +1385,13 @@ def _condition_test(prepared: PathLike, gene_report: PathLike, fdr: float) -> An
     genes = pd.Index(np.asarray(data.var_names, dtype=str), name="gene")
     conditions = list(dict.fromkeys(data.obs["condition"].astype(str)))
     if len(conditions) < 2:
-        raise GloamError(
-            f"comparing conditions needs at least two, and {str(prepared)!r} has "
-            f"{conditions}; prepare the dataset with conditions: concatenate"
-        )
+        return None, f"the run holds one condition ({conditions[0]}): nothing to compare"
     report = pd.read_csv(gene_report, sep="\t", dtype={"gene": str}, float_precision="round_trip")
     report = report.set_index("gene")
     if "interaction_fdr" not in report.columns:
-        raise GloamError(
-            "the gene report has no condition x time interaction test; it needs replicates in "
-            "every condition and the same time points in each (see prepared/summary notes)"
+        return None, (
+            "no condition x time interaction test: it needs replicates in every condition and "
+            "the same time points in each"
         )
     report = report.reindex(genes)
     log_means = np.asarray(data.layers[LOG_MEAN_LAYER], dtype=np.float64).T
@@ -1419,7 +1422,7 @@ def _condition_test(prepared: PathLike, gene_report: PathLike, fdr: float) -> An
     test = InteractionTest(
         table=table, profiles=profiles, fdr_level=fdr, df_prior=float("nan"), notes=[]
     )
-    return test, report[extra]
+    return (test, report[extra]), ""
 
 
 def run_comparison(
@@ -1434,7 +1437,6 @@ def run_comparison(
     min_log2_range: float,
     prefix: str,
     out_dir: PathLike,
-    figure: FigurePaths,
 ) -> None:
     """Compare the conditions of a run: shared responses, transitions and changed genes.
 
@@ -1450,16 +1452,62 @@ def run_comparison(
     time interaction FDR (from the preparation) is at most ``fdr`` and its top response
     differs between conditions (Gelman & Stern 2006: a difference is tested directly).
 
-    Writes into ``out_dir``: ``responses.tsv`` (``gene``, ``status``, ``changed``,
+    Writes the folder ``out_dir`` whole or not at all. ``selection.json`` is always there:
+    ``compared`` (bool), ``reason`` and, when compared, ``n_clusters``, ``m``,
+    ``conditions``, ``n_profiles_changing``, ``n_profiles_flat``, ``fdr``,
+    ``min_log2_range``, ``structure``, ``status_counts`` and ``notes``. When the conditions
+    were compared: ``responses.tsv`` (``gene``, ``status``, ``changed``,
     ``interaction_fdr``, ``interaction_effect_log2``, per condition ``<c>``:
     ``response_<c>``, ``membership_<c>``, ``<c>_C1`` ... ``<c>_noise``, ``mean_log2_<c>``,
     ``log2_range_<c>``, ``peak_time_<c>``), ``transitions.tsv`` (:data:`TRANSITION_COLUMNS`,
     the first condition against each other one), ``centroids.tsv`` (shared responses x time
-    points, z-scores), ``validity.tsv`` (the judged scan), ``selection.json`` (c, m, reason,
-    structure test, conditions, counts by status, notes) and ``genesets/`` (a GMT of the
-    changed genes per pair and per transition, one list per set, ``background.txt``: every
-    gene compared); and the transitions figure (first pair) to ``figure``.
+    points, z-scores), ``validity.tsv`` (the judged scan), ``genesets/`` (a GMT of the
+    changed genes, one list per set, ``background.txt``: every gene compared) and the
+    transitions figure of the first pair, ``transitions.png``/``.pdf``/``.svg``. A run with
+    one condition, without replicates or without shared responses gets ``selection.json``
+    alone, with the reason.
     """
+    with atomic_directory(out_dir) as staging:
+        record = _compare_into(
+            staging,
+            prepared,
+            gene_report,
+            scan_settings,
+            selection_settings,
+            cluster_numbers,
+            seed,
+            fdr=fdr,
+            min_log2_range=min_log2_range,
+            prefix=prefix,
+        )
+        _write_json(record, staging / "selection.json")
+    if record["compared"]:
+        counts = record["status_counts"]
+        print(
+            f"gloam: conditions compared ({', '.join(record['conditions'])}): "
+            f"{record['n_clusters']} shared responses (m = {record['m']:.3f}); "
+            + ", ".join(f"{k} {v}" for k, v in counts.items())
+            + " genes",
+            file=sys.stderr,
+        )
+    else:
+        print(f"gloam: conditions not compared: {record['reason']}", file=sys.stderr)
+
+
+def _compare_into(
+    out: Path,
+    prepared: PathLike,
+    gene_report: PathLike,
+    scan_settings: Mapping[str, Any],
+    selection_settings: Mapping[str, Any],
+    cluster_numbers: Sequence[int],
+    seed: int,
+    *,
+    fdr: float,
+    min_log2_range: float,
+    prefix: str,
+) -> dict[str, Any]:
+    """The work of :func:`run_comparison`; returns the ``selection.json`` record."""
     from gloam.compare import (
         changed_gene_sets,
         plot_transitions,
@@ -1477,10 +1525,13 @@ def run_comparison(
 
     selection = {**_SELECTION_DEFAULTS, **selection_settings}
     scan = {**_SCAN_DEFAULTS, **scan_settings}
-    test, effects = _condition_test(prepared, gene_report, fdr)
+    found, why_not = _condition_test(prepared, gene_report, fdr)
+    if found is None:
+        return {"compared": False, "reason": why_not}
+    test, effects = found
     profiles = test.profiles
     cube = profiles.values
-    n_genes, n_conditions, n_times = cube.shape
+    n_times = cube.shape[2]
     time_fdr = np.column_stack(
         [test.table[f"time_fdr_{c}"].to_numpy(dtype=float) for c in profiles.conditions]
     )
@@ -1489,10 +1540,11 @@ def run_comparison(
     n_rows = changing.shape[0]
     numbers = sorted(int(c) for c in cluster_numbers if 2 <= int(c) < n_rows)
     if n_rows < 10 or not numbers:
-        raise GloamError(
-            f"only {n_rows} gene-condition profiles change over time; comparing responses "
-            "needs at least 10 (and more than the smallest scanned c)"
-        )
+        return {
+            "compared": False,
+            "reason": f"only {n_rows} gene-condition profiles change over time (at least 10 "
+            "and more than the smallest scanned c are needed)",
+        }
     m = schwaemmle_jensen_m(n_rows, n_times)
     rows, centroids_at = [], {}
     for c in numbers:
@@ -1531,15 +1583,14 @@ def run_comparison(
     )
     chosen = recommended_n_clusters(judged)
     judged["used"] = judged["n_clusters"] == chosen
+    write_table(judged, out / "validity.tsv")
     if chosen < 2:
-        reason = (
-            "the changing gene-condition profiles show no responses that pass the criteria "
-            f"(structure p = {structure.p_value:.3g}); no shared responses to compare"
-        )
-        raise GloamError(
-            f"conditions cannot be compared for {prefix!r}: {reason}; the interaction test "
-            "is still in prepared/gene_report.tsv"
-        )
+        return {
+            "compared": False,
+            "reason": "the changing gene-condition profiles show no shared responses that pass "
+            f"the criteria (structure p = {structure.p_value:.3g}); see validity.tsv",
+            "structure": structure.to_dict(),
+        }
     reason = str(judged.loc[judged["recommended"], "reason"].iloc[0])
     centroids = centroids_at[chosen]
     centroids = centroids[order_clusters_by_peak_time(centroids, profiles.times, None)]
@@ -1574,10 +1625,7 @@ def run_comparison(
             drawing = plot_transitions(
                 everything, changed, centroids=shared.centroids, times=shared.times, fdr=fdr
             )
-            save_figure(drawing, *figure)
-    counts = responses["status"].value_counts()
-    out = Path(out_dir)
-    out.mkdir(parents=True, exist_ok=True)
+            save_figure(drawing, *(out / f"transitions.{kind}" for kind in ("png", "pdf", "svg")))
     write_table(responses.reset_index(), out / "responses.tsv")
     write_table(pd.concat(transitions, ignore_index=True), out / "transitions.tsv")
     centroid_table = pd.DataFrame(
@@ -1586,32 +1634,24 @@ def run_comparison(
         columns=[f"t{np.format_float_positional(t, trim='-')}" for t in shared.times],
     )
     write_table(centroid_table, out / "centroids.tsv", index=True)
-    write_table(judged, out / "validity.tsv")
-    with atomic_directory(out / "genesets") as staging:
-        write_gmt(gene_sets, staging / f"{prefix}_changed.gmt")
-        for name, (_, genes) in gene_sets.items():
-            write_lines(genes, staging / f"{name}.txt")
-        write_lines(background, staging / "background.txt")
-    _write_json(
-        {
-            "n_clusters": chosen,
-            "m": m,
-            "reason": reason,
-            "conditions": list(profiles.conditions),
-            "n_profiles_changing": n_rows,
-            "n_profiles_flat": int(flat.sum()),
-            "fdr": fdr,
-            "min_log2_range": min_log2_range,
-            "structure": structure.to_dict(),
-            "status_counts": {str(k): int(v) for k, v in counts.items()},
-            "notes": list(shared.notes),
-        },
-        out / "selection.json",
-    )
-    print(
-        f"gloam: conditions compared ({', '.join(profiles.conditions)}): {chosen} shared "
-        f"responses (m = {m:.3f}); "
-        + ", ".join(f"{k} {int(v)}" for k, v in counts.items())
-        + " genes",
-        file=sys.stderr,
-    )
+    sets_dir = out / "genesets"
+    sets_dir.mkdir()
+    write_gmt(gene_sets, sets_dir / f"{prefix}_changed.gmt")
+    for name, (_, genes) in gene_sets.items():
+        write_lines(genes, sets_dir / f"{name}.txt")
+    write_lines(background, sets_dir / "background.txt")
+    counts = responses["status"].value_counts()
+    return {
+        "compared": True,
+        "reason": reason,
+        "n_clusters": chosen,
+        "m": m,
+        "conditions": list(profiles.conditions),
+        "n_profiles_changing": n_rows,
+        "n_profiles_flat": int(flat.sum()),
+        "fdr": fdr,
+        "min_log2_range": min_log2_range,
+        "structure": structure.to_dict(),
+        "status_counts": {str(k): int(v) for k, v in counts.items()},
+        "notes": list(shared.notes),
+    }
