@@ -180,13 +180,19 @@ def _add_demo(subparsers: argparse._SubParsersAction) -> None:
         description=(
             "Simulate the built-in demo: leaves of an invented alpine herb moved to 4 degC, "
             "sampled at 10 uneven times over 48 h in replicates. Writes counts.tsv, "
-            "samples.tsv and truth.tsv (the planted response of every gene) into --out-dir."
+            "samples.tsv and truth.tsv (the planted response of every gene) into --out-dir; "
+            "an invented mutant line (frl1) with some changed responses is sampled too."
         ),
     )
     parser.add_argument("--out-dir", type=Path, default=Path("demo_data"), help="(demo_data)")
     parser.add_argument("--seed", type=int, default=20261201, help="generator seed (20261201)")
     parser.add_argument("--n-genes", type=int, default=3000, help="number of genes (3000)")
     parser.add_argument("--n-replicates", type=int, default=3, help="replicates per time (3)")
+    parser.add_argument(
+        "--no-mutant",
+        action="store_true",
+        help="only the wild type (by default an invented mutant line, frl1, is sampled too)",
+    )
     parser.set_defaults(run=_run_demo)
 
 
@@ -196,7 +202,11 @@ def _run_demo(args: argparse.Namespace) -> int:
     _check_out_dir(args.out_dir)
     _check_seed(args.seed, "20261201")
     paths = write_demo(
-        args.out_dir, seed=args.seed, n_genes=args.n_genes, n_replicates=args.n_replicates
+        args.out_dir,
+        seed=args.seed,
+        n_genes=args.n_genes,
+        n_replicates=args.n_replicates,
+        with_mutant=not args.no_mutant,
     )
     print(f"gloam: demo written: {', '.join(str(path) for path in paths)}")
     return 0

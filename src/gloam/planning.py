@@ -101,6 +101,14 @@ _LINEAR = {
     ("core_genes", "runtime"): (3, 0.05),
     ("summary", "mem_mb"): (500, 2),
     ("summary", "runtime"): (2, 0.02),
+    # The comparison scans c on the gene-condition profiles in one job (as many scans as a
+    # run's, on up to n_conditions times the rows, with fewer columns each).
+    ("compare", "mem_mb"): (1000, 20),
+    ("compare", "runtime"): (10, 2.0),
+    ("report", "mem_mb"): (800, 4),
+    ("report", "runtime"): (3, 0.05),
+    ("report_index", "mem_mb"): (500, 1),
+    ("report_index", "runtime"): (2, 0.01),
 }
 
 
@@ -471,6 +479,8 @@ class Plan:
             "selection.json",
             "gloam.h5ad",
             "genesets",
+            "comparison",
+            "report.html",
         ]
         names += [
             f"figures/{figure}.{kind}" for figure in FIGURES for kind in ("png", "pdf", "svg")
@@ -480,9 +490,37 @@ class Plan:
     def summary_path(self) -> str:
         return f"{self.results_dir}/summary.tsv"
 
+    def index_path(self) -> str:
+        """The report page over every run."""
+        return f"{self.results_dir}/index.html"
+
+    def report_pages(self) -> dict[str, str]:
+        """Run id -> its report page."""
+        return {run: self.path(run, "report.html") for run in self.runs}
+
+    def comparison_settings(self, run: str) -> dict[str, Any]:
+        """What the comparison of a run's conditions reads: its scan (start settings and the
+        scanned c), selection criteria, FDR level and smallest log2 range, and a prefix."""
+        settings = self.run(run)
+        return {
+            "scan": self.start_settings(run),
+            "selection": settings["selection"],
+            "cluster_numbers": self.cluster_numbers(run),
+            "fdr": settings["preparation"]["fdr"],
+            "min_log2_range": settings["preparation"]["min_log2_range"],
+            "prefix": run,
+        }
+
+    def report_settings(self, run: str) -> dict[str, Any]:
+        """The run's recorded settings plus the gene-set thresholds, for its report page."""
+        return {
+            **self.run_settings(run),
+            "genesets": {"thresholds": list(self.config["genesets"]["thresholds"])},
+        }
+
     def final_outputs(self) -> list[str]:
-        """The summary table and every output of every run."""
-        files = [self.summary_path()]
+        """The summary table, the index page and every output of every run."""
+        files = [self.summary_path(), self.index_path()]
         for run in self.runs:
             files += self.run_outputs(run)
         return files

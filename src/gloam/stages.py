@@ -184,6 +184,7 @@ def run_demo(
     seed: int,
     n_genes: int,
     n_replicates: int,
+    with_mutant: bool = False,
 ) -> None:
     """Write the invented demo experiment (see :mod:`gloam.demo`) to three TSV files."""
     from gloam.demo import write_demo
@@ -196,6 +197,7 @@ def run_demo(
         seed=seed,
         n_genes=n_genes,
         n_replicates=n_replicates,
+        with_mutant=with_mutant,
     )
 
 

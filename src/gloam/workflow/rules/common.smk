@@ -106,6 +106,24 @@ def get_run_settings(wildcards):
     return PLAN.run_settings(get_run(wildcards)["run"])
 
 
+@per_job
+def get_comparison_settings(wildcards):
+    return PLAN.comparison_settings(get_run(wildcards)["run"])
+
+
+@per_job
+def get_report_settings(wildcards):
+    return PLAN.report_settings(get_run(wildcards)["run"])
+
+
+@per_job
+def get_run_files(wildcards):
+    """Every output of the run but its report page, which is made from them."""
+    run = get_run(wildcards)["run"]
+    page = PLAN.path(run, "report.html")
+    return [path for path in PLAN.run_outputs(run) if path != page]
+
+
 # ---------------------------------------------------------------- resources
 #
 # Estimates scale with the size of the job's input on disk (gloam.planning.Plan.resource); the

@@ -13,6 +13,7 @@ rule demo_data:
         seed=SETTINGS["demo"]["seed"],
         n_genes=SETTINGS["demo"]["n_genes"],
         n_replicates=SETTINGS["demo"]["n_replicates"],
+        mutant=SETTINGS["demo"]["mutant"],
     log:
         "logs/demo_data.log",
     localrule: True

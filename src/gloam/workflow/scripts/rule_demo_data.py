@@ -25,5 +25,6 @@ with rule_environment(job.log[0], job.threads):
             seed=job.params.seed,
             n_genes=job.params.n_genes,
             n_replicates=job.params.n_replicates,
+            with_mutant=job.params.mutant,
         )
     )

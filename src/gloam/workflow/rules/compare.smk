@@ -1,0 +1,32 @@
+# Conditions compared: shared responses, transitions and changed genes. One job per run; it
+# needs only the preparation, so it runs beside the scans. A run with one condition (or no
+# replicates) gets comparison/selection.json alone, saying why nothing was compared.
+
+
+rule compare:
+    input:
+        prepared=run_path("{run}", "prepared/prepared.h5ad"),
+        gene_report=run_path("{run}", "prepared/gene_report.tsv"),
+    output:
+        comparison=report(
+            directory(run_path("{run}", "comparison")),
+            patterns=["transitions.png"],
+            caption="../report/transitions.rst",
+            category="{run}",
+            subcategory="6 conditions compared",
+        ),
+    params:
+        settings=get_comparison_settings,
+        seed=SETTINGS["seed"],
+    log:
+        "logs/{run}/compare.log",
+    benchmark:
+        "benchmarks/{run}/compare.tsv"
+    threads: PLAN.threads("compare")
+    resources:
+        mem_mb=resource("compare", "mem_mb"),
+        runtime=resource("compare", "runtime"),
+    conda:
+        "../envs/gloam.yaml"
+    script:
+        "../scripts/rule_compare.py"

@@ -1,0 +1,35 @@
+# ruff: noqa: E402 -- gloam is imported once the package root is on the path
+"""Snakemake rule ``compare``: the conditions of a run compared (shared responses)."""
+
+import signal
+import sys
+from pathlib import Path
+
+job = snakemake  # noqa: F821 -- injected by Snakemake's script directive
+# Ctrl-C reaches the jobs too: stop with status 130 (128 + SIGINT) and no traceback; Snakemake
+# reports the interruption, and unfinished outputs never carry their final names.
+signal.signal(signal.SIGINT, lambda *_: sys.exit(130))
+# The gloam this script belongs to (<package root>/gloam/workflow/scripts), the controller's,
+# comes first: never another gloam that the job's environment may hold.
+sys.path.insert(0, str(Path(job.scriptdir).resolve().parents[2]))
+
+from gloam.errors import exit_on_user_error
+from gloam.stages import rule_environment, run_comparison
+
+settings = job.params.settings
+
+with rule_environment(job.log[0], job.threads):
+    exit_on_user_error(
+        lambda: run_comparison(
+            job.input.prepared,
+            job.input.gene_report,
+            settings["scan"],
+            settings["selection"],
+            settings["cluster_numbers"],
+            job.params.seed,
+            fdr=settings["fdr"],
+            min_log2_range=settings["min_log2_range"],
+            prefix=settings["prefix"],
+            out_dir=job.output.comparison,
+        )
+    )
