@@ -36,7 +36,8 @@ THRESHOLDS = [0.5, 0.7]
 BASE_CONFIG = {
     "datasets": "datasets.tsv",
     "seed": 7,
-    "demo": {"out_dir": "demo", "n_genes": 400, "seed": 11},
+    # One condition: the comparison of conditions has a test of its own below.
+    "demo": {"out_dir": "demo", "n_genes": 400, "seed": 11, "mutant": False},
     "scan": {"min_clusters": 2, "max_clusters": 6, "n_starts": 5, "n_resamples": 5},
     # The planted number of responses, so recovery is judged on the right c; the automatic
     # choice is covered by the validity tests of gloam.validity.
@@ -332,6 +333,20 @@ def test_summary_has_one_row_per_run(finished):
         assert row[f"core_genes_{threshold:g}"] == int(core.sum())
 
 
+def test_report_pages_are_written_and_linked(finished):
+    page = results(finished) / "report.html"
+    index = finished / "results" / "index.html"
+    assert page.stat().st_size > 100_000 and index.is_file()
+    assert f"{RUN}/report.html" in index.read_text(encoding="utf-8")  # the link, made relative
+    # One condition: the comparison says why nothing was compared, and nothing else.
+    comparison = results(finished) / "comparison"
+    record = json.loads((comparison / "selection.json").read_text(encoding="utf-8"))
+    assert record["compared"] is False and "one condition" in record["reason"]
+    # (Snakemake marks a finished directory output with a hidden timestamp file.)
+    files = sorted(path.name for path in comparison.iterdir() if not path.name.startswith("."))
+    assert files == ["selection.json"]
+
+
 def test_report_builds(finished):
     snakemake(finished, "--report", "report.html")
     html = (finished / "report.html").read_text(encoding="utf-8", errors="replace")
@@ -378,7 +393,7 @@ def test_changing_thresholds_reruns_only_the_core_gene_rule(finished, tmp_path):
     copy = copy_with_setting(finished, tmp_path, "genesets", "thresholds", [0.6, 0.8])
     planned = planned_rules(copy)
     assert planned.get("core_genes") == 1
-    assert set(planned) <= {"core_genes", "summary", "all"}
+    assert set(planned) <= {"core_genes", "summary", "report_page", "report_index", "all"}
     snakemake(copy)
     assert (copy / "results" / RUN / "genesets" / f"{RUN}_core0.8.gmt").is_file()
     assert not (copy / "results" / RUN / "genesets" / f"{RUN}_core0.7.gmt").exists()
@@ -747,3 +762,35 @@ def test_structureless_data_with_default_settings_get_the_no_structure_verdict(t
     assert gmt.strip() == ""
     log = (directory / "logs" / "cloud" / "select.log").read_text(encoding="utf-8")
     assert "quality flag no_structure" in log
+
+
+def test_two_conditions_are_compared_end_to_end(tmp_path):
+    """The demo with its invented mutant line: genes whose planted response switches
+    (truth ``switched``) are found as changed (precision and recall against the truth;
+    Gelman & Stern 2006 for testing the difference itself), the transition table sums to the
+    genes compared, and the changed-gene GMT lies within its background."""
+    config = {
+        **BASE_CONFIG,
+        "demo": {"out_dir": "demo", "n_genes": 600, "seed": 11, "mutant": True},
+        "selection": {},
+    }
+    directory = write_workdir(tmp_path / "run", config)
+    snakemake(directory)
+    comparison = results(directory) / "comparison"
+    record = json.loads((comparison / "selection.json").read_text(encoding="utf-8"))
+    assert record["compared"] is True, record["reason"]
+    assert record["conditions"] == ["cold", "frl1"]
+    responses = pd.read_csv(comparison / "responses.tsv", sep="\t", dtype={"gene": str})
+    truth = pd.read_csv(directory / "demo" / "truth.tsv", sep="\t", index_col="gene")
+    switched = truth.loc[responses["gene"], "switched"].to_numpy(dtype=bool)
+    changed = responses["changed"].to_numpy(dtype=bool)
+    assert (changed & switched).sum() >= 0.8 * changed.sum()
+    assert (changed & switched).sum() >= 0.6 * switched.sum()
+    transitions = pd.read_csv(comparison / "transitions.tsv", sep="\t")
+    assert transitions["n_genes"].sum() == len(responses)
+    assert transitions["n_changed"].sum() == changed.sum()
+    background = set((comparison / "genesets" / "background.txt").read_text().split())
+    for line in (comparison / "genesets" / f"{RUN}_changed.gmt").read_text().splitlines():
+        assert set(line.split("\t")[2:]) <= background
+    for kind in ("png", "pdf", "svg"):
+        assert (comparison / f"transitions.{kind}").stat().st_size > 0
