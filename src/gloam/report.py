@@ -97,6 +97,11 @@ FIGURE_CAPTIONS: dict[str, str] = {
         "How crisp clusterings of shuffled data are as m grows, with the m used and the "
         "formula's m marked."
     ),
+    "transitions": (
+        "Conditions compared: where genes move between the shared responses from the first "
+        "condition to the second; the solid part of each square is the genes called changed "
+        "(interaction FDR at the level and a different response)."
+    ),
 }
 
 #: Full references by their in-text form, as in the README's reference list.
@@ -199,6 +204,11 @@ _FILE_MEANINGS: tuple[tuple[str, str], ...] = (
     (r"figures/.*\.png", "figure, PNG (300 dpi)"),
     (r"figures/.*\.pdf", "figure, PDF (fonts embedded)"),
     (r"figures/.*\.svg", "figure, SVG (text kept as text)"),
+    (r"comparison/selection\.json", "conditions compared: whether, how many shared responses"),
+    (r"comparison/responses\.tsv", "each gene's response in each condition and its change"),
+    (r"comparison/transitions\.tsv", "genes by response in one condition and in the other"),
+    (r"comparison/genesets/.*", "changed genes as gene sets, with their background"),
+    (r"comparison/transitions\.(png|pdf|svg)", "transitions figure"),
 )
 
 
@@ -479,7 +489,10 @@ def read_run(
 
     figures: dict[str, Path] = {}
     for path in files:
-        if path.parent == root / "figures" and path.suffix in (".png", ".svg"):
+        if path.parent in (root / "figures", root / "comparison") and path.suffix in (
+            ".png",
+            ".svg",
+        ):
             if path.suffix == ".png" or path.stem not in figures:
                 figures[path.stem] = path
     order = list(FIGURE_CAPTIONS)
@@ -1247,6 +1260,7 @@ _FILE_GROUPS = (
     ("Results", re.compile(r"[^/]+\.(tsv|json|h5ad)")),
     ("Gene sets", re.compile(r"genesets/.*")),
     ("Figures", re.compile(r"figures/.*")),
+    ("Conditions compared", re.compile(r"comparison/.*")),
     ("Preparation", re.compile(r"prepared/.*")),
     ("Intermediate files", re.compile(r".*")),
 )
