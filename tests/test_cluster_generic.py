@@ -125,8 +125,22 @@ def test_every_job_is_submitted_once_and_a_runs_finish_is_one_submission(cluster
 
 # Threads each rule declares by default and the base of its memory estimate (MB), as
 # workflow/rules/*.smk and the README's resources section give them.
-DECLARED_THREADS = {"prepare": 2, "scan": 1, "select": 1, "summary": 1}
-BASE_MEM_MB = {"prepare": 1000, "scan": 500, "select": 500, "summary": 500}
+DECLARED_THREADS = {
+    "prepare": 2,
+    "scan": 1,
+    "select": 1,
+    "summary": 1,
+    "compare": 1,
+    "report_page": 1,
+}
+BASE_MEM_MB = {
+    "prepare": 1000,
+    "scan": 500,
+    "select": 500,
+    "summary": 500,
+    "compare": 1000,
+    "report_page": 800,
+}
 
 
 def job_properties(jobscript: str) -> dict:

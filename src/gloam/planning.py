@@ -105,8 +105,8 @@ _LINEAR = {
     # run's, on up to n_conditions times the rows, with fewer columns each).
     ("compare", "mem_mb"): (1000, 20),
     ("compare", "runtime"): (10, 2.0),
-    ("report", "mem_mb"): (800, 4),
-    ("report", "runtime"): (3, 0.05),
+    ("report_page", "mem_mb"): (800, 4),
+    ("report_page", "runtime"): (3, 0.05),
     ("report_index", "mem_mb"): (500, 1),
     ("report_index", "runtime"): (2, 0.01),
 }

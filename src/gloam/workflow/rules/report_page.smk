@@ -12,10 +12,10 @@ rule report_page:
         settings=get_report_settings,
     log:
         "logs/{run}/report_page.log",
-    threads: PLAN.threads("report")
+    threads: PLAN.threads("report_page")
     resources:
-        mem_mb=resource("report", "mem_mb"),
-        runtime=resource("report", "runtime"),
+        mem_mb=resource("report_page", "mem_mb"),
+        runtime=resource("report_page", "runtime"),
     conda:
         "../envs/gloam.yaml"
     script:
