@@ -47,6 +47,7 @@ import pandas as pd
 
 from gloam.errors import GloamError, GloamWarning, show_warning
 from gloam.io import atomic_directory, atomic_output, read_npz_checked, write_table
+from gloam.planning import START_SETTINGS
 
 __all__ = [
     "rule_environment",
@@ -481,18 +482,9 @@ def read_scan_input(path: PathLike) -> ScanInput:
     )
 
 
-#: Scan settings passed on to :func:`gloam.partition.solve_partition`.
-SCAN_SETTINGS = (
-    "n_starts",
-    "tol",
-    "max_iter",
-    "init",
-    "precision",
-    "min_starts_at_optimum",
-    "max_starts",
-    "noise_class",
-    "n_resamples",
-)
+#: Scan settings passed on to :func:`gloam.partition.solve_partition`: the start settings of
+#: the plan (:data:`gloam.planning.START_SETTINGS`), one list for both.
+SCAN_SETTINGS = START_SETTINGS
 _SCAN_DEFAULTS = {
     "min_starts_at_optimum": 3,
     "max_starts": 100,
