@@ -305,6 +305,67 @@ def summary_line(rows: list[dict]) -> str:
     )
 
 
+# ------------------------------------------------------------------ range and consensus
+
+RANGE_CHECK = ("easy_s1", "holdout_s21", "fresh_s31")
+NARROW_MAX, WIDE_MAX = 9, 15
+
+
+def range_and_consensus_row(setting: Setting, truth: pd.DataFrame, run: Path) -> dict[str, Any]:
+    """On a finished run: the c chosen from scans of 2..9 and of 2..15 (the scans above the
+    run's own are made here, with the workflow's default scan settings), and the ARI on core
+    genes of the consensus against that of the best single start at the chosen c."""
+    from gloam import stages
+    from gloam.fcm import fuzzy_cmeans
+    from gloam.validity import judge_n_clusters, recommended_n_clusters
+
+    data = stages.read_scan_input(run / "prepared" / "scan_input.npz")
+    selection = read_selection(run / "selection.json")
+    structure = bool(selection["structure"]["present"])
+    settings = {
+        "n_starts": 20,
+        "tol": 1e-4,
+        "max_iter": 500,
+        "init": "kmeans++",
+        "precision": "fast",
+    }
+    extra = run / "scan_wide"
+    metrics = []
+    for c in range(2, WIDE_MAX + 1):
+        path = run / "scan" / f"c{c}.npz"
+        if not path.is_file():
+            path = extra / f"c{c}.npz"
+            if not path.is_file():
+                stages.run_scan(run / "prepared" / "scan_input.npz", c, settings, SEED, path)
+        metrics.append(stages.read_scan(path, data.zscores.index)["metrics"])
+    table = pd.DataFrame(metrics)
+    narrow = recommended_n_clusters(
+        judge_n_clusters(table[table["n_clusters"] <= NARROW_MAX], structure_present=structure)
+    )
+    wide = recommended_n_clusters(judge_n_clusters(table, structure_present=structure))
+    chosen = int(selection["n_clusters"])
+    labels = truth.set_index("gene")["response"].reindex(data.zscores.index).to_numpy()
+    consensus = stages.read_consensus(run / "consensus.npz")
+    top = consensus["memberships"].max(axis=1)
+    core = (consensus["top_class"] >= 0) & (top >= CORE_THRESHOLD) & (labels != "flat")
+    ari_consensus = adjusted_rand_score(labels[core], consensus["top_class"][core])
+    result = fuzzy_cmeans(
+        data.zscores.to_numpy(), chosen, data.m, n_starts=20, init="kmeans++", rng=SEED
+    )
+    best = result.memberships[result.best_index]
+    best_core = (best.max(axis=1) >= CORE_THRESHOLD) & (labels != "flat")
+    ari_best = adjusted_rand_score(labels[best_core], best.argmax(axis=1)[best_core])
+    return {
+        "setting": setting.name,
+        "c from 2..9": narrow,
+        "c from 2..15": wide,
+        "same c": narrow == wide,
+        "ARI consensus": ari_consensus,
+        "ARI best start": ari_best,
+        "consensus >= best": ari_consensus >= ari_best - 1e-12,
+    }
+
+
 # ------------------------------------------------------------------------- grid
 
 
@@ -545,6 +606,16 @@ def main(argv: list[str] | None = None) -> int:
             print(markdown_table(rows, RECOVERY_COLUMNS))
             print()
             print(summary_line(rows))
+            checks = []
+            for setting in grid:
+                row = next(r for r in rows if r["setting"] == setting.name)
+                if setting.name in RANGE_CHECK and "failed" not in row:
+                    truth = simulate_experiment(**setting.simulation).truth
+                    run = root / setting.name / "results" / setting.name
+                    checks.append(range_and_consensus_row(setting, truth, run))
+            if checks:
+                print()
+                print(markdown_table(checks))
         if args.yeast or args.yeast_only:
             yeast_rows = run_yeast(
                 args.python,
