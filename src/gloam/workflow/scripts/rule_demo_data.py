@@ -7,8 +7,12 @@ from pathlib import Path
 
 job = snakemake  # noqa: F821 -- injected by Snakemake's script directive
 # Ctrl-C reaches the jobs too: stop with status 130 (128 + SIGINT) and no traceback; Snakemake
-# reports the interruption, and unfinished outputs never carry their final names.
-signal.signal(signal.SIGINT, lambda *_: sys.exit(130))
+# reports the interruption, and unfinished outputs never carry their final names. Later
+# SIGINTs are ignored: a second one (Snakemake forwards it, the terminal sends it to the group)
+# would otherwise land in the exit's own clean-up and print a traceback there.
+signal.signal(
+    signal.SIGINT, lambda *_: (signal.signal(signal.SIGINT, signal.SIG_IGN), sys.exit(130))
+)
 # The gloam this script belongs to (<package root>/gloam/workflow/scripts), the controller's,
 # comes first: never another gloam that the job's environment may hold.
 sys.path.insert(0, str(Path(job.scriptdir).resolve().parents[2]))
