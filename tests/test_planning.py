@@ -109,9 +109,13 @@ def test_variants_make_one_run_per_dataset_and_variant_with_merged_settings(tmp_
     assert {run["scan"]["n_starts"] for run in plan.runs.values()} == {7}
     assert m16["value_type"] == "log"
     assert plan.start_settings("a.loose") == {key: loose["scan"][key] for key in START_SETTINGS}
-    # The summary and the index page, then every output of the four runs.
-    assert len(plan.final_outputs()) == 2 + 4 * len(plan.run_outputs("a.loose"))
-    assert plan.final_outputs()[:2] == [plan.summary_path(), plan.index_path()]
+    # The summary, the index page and the sensitivity table, then every output of the runs.
+    assert len(plan.final_outputs()) == 3 + 4 * len(plan.run_outputs("a.loose"))
+    assert plan.final_outputs()[:3] == [
+        plan.summary_path(),
+        plan.index_path(),
+        plan.sensitivity_path(),
+    ]
 
 
 def test_separate_conditions_become_runs(tmp_path):

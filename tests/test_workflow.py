@@ -316,6 +316,14 @@ def test_clusters_are_numbered_by_peak_time(finished):
     assert np.all(np.diff(peaks) >= 0), peaks
 
 
+def test_sensitivity_table_is_written_with_its_columns(finished):
+    from gloam.stages import SENSITIVITY_COLUMNS
+
+    text = (finished / "results" / "sensitivity.tsv").read_text(encoding="utf-8")
+    # One run, no variants: the header alone.
+    assert text.strip().split("\t") == list(SENSITIVITY_COLUMNS)
+
+
 def test_summary_has_one_row_per_run(finished):
     summary = pd.read_csv(finished / "results" / "summary.tsv", sep="\t")
     assert summary["run"].tolist() == [RUN]

@@ -490,6 +490,10 @@ class Plan:
     def summary_path(self) -> str:
         return f"{self.results_dir}/summary.tsv"
 
+    def sensitivity_path(self) -> str:
+        """How much each dataset's clusters change across its settings variants."""
+        return f"{self.results_dir}/sensitivity.tsv"
+
     def index_path(self) -> str:
         """The report page over every run."""
         return f"{self.results_dir}/index.html"
@@ -520,7 +524,7 @@ class Plan:
 
     def final_outputs(self) -> list[str]:
         """The summary table, the index page and every output of every run."""
-        files = [self.summary_path(), self.index_path()]
+        files = [self.summary_path(), self.index_path(), self.sensitivity_path()]
         for run in self.runs:
             files += self.run_outputs(run)
         return files

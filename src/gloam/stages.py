@@ -83,6 +83,8 @@ __all__ = [
     "COMPARISON_FILES_WHEN_COMPARED",
     "TRANSITION_COLUMNS",
     "summarise_runs",
+    "summarise_sensitivity",
+    "SENSITIVITY_COLUMNS",
     "RESULT_KEY",
     "VAR_PREFIX",
 ]
@@ -1339,6 +1341,75 @@ def summarise_runs(
             file=sys.stderr,
         )
     write_table(pd.DataFrame(rows), out_tsv)
+
+
+#: Columns of ``sensitivity.tsv`` (then those of :func:`gloam.compare.sensitivity_summary`).
+SENSITIVITY_KEYS = ("dataset", "condition", "reference", "run")
+SENSITIVITY_COLUMNS = (
+    *SENSITIVITY_KEYS,
+    "n_clusters",
+    "n_clusters_reference",
+    "n_matched",
+    "n_unmatched",
+    "mean_correlation",
+    "min_correlation",
+    "mean_jaccard",
+    "min_jaccard",
+    "ari",
+    "n_shared_genes",
+)
+
+
+def summarise_sensitivity(
+    runs: Sequence[Mapping[str, Any]], consensus_files: Sequence[PathLike], out_tsv: PathLike
+) -> None:
+    """How much the clusters of one dataset change across its settings variants.
+
+    Runs of the same dataset (and condition) are matched to its reference run, the one
+    without a variant (else the first), with :func:`gloam.compare.sensitivity_summary`:
+    clusters paired by centroid correlation (Hungarian method), the core-gene Jaccard of each
+    pair and the adjusted Rand index of the whole partitions on shared genes. One row per
+    other run; :data:`SENSITIVITY_COLUMNS`. Datasets run under one setting only give no row
+    (the file then holds the header alone).
+    """
+    from gloam.compare import ClusteredRun, sensitivity_summary
+
+    groups: dict[tuple[str, str], list[tuple[Mapping[str, Any], PathLike]]] = {}
+    for run, path in zip(runs, consensus_files, strict=True):
+        key = (str(run["dataset"]), str(run.get("condition") or ""))
+        groups.setdefault(key, []).append((run, path))
+    tables = []
+    for (dataset, condition), members in groups.items():
+        if len(members) < 2:
+            continue
+        clustered = {}
+        for run, path in members:
+            consensus = read_consensus(path)
+            genes = consensus["genes"].astype(str)
+            clustered[str(run["run"])] = ClusteredRun(
+                centroids=consensus["centroids"],
+                memberships=pd.DataFrame(
+                    consensus["memberships"],
+                    index=genes,
+                    columns=consensus["cluster_names"].tolist(),
+                ),
+                noise=pd.Series(consensus["noise"], index=genes),
+            )
+        reference = next(
+            (str(run["run"]) for run, _ in members if not run.get("variant")),
+            str(members[0][0]["run"]),
+        )
+        table = sensitivity_summary(clustered, reference=reference).reset_index()
+        table.insert(0, "reference", reference)
+        table.insert(0, "condition", condition)
+        table.insert(0, "dataset", dataset)
+        tables.append(table)
+    result = (
+        pd.concat(tables, ignore_index=True)
+        if tables
+        else pd.DataFrame(columns=list(SENSITIVITY_COLUMNS))
+    )
+    write_table(result, out_tsv)
 
 
 # ------------------------------------------------------------------ conditions compared

@@ -11,6 +11,7 @@ rule summary:
             caption="../report/summary.rst",
             category="Summary",
         ),
+        sensitivity=PLAN.sensitivity_path(),
     params:
         runs=PLAN.summary_runs(),
         thresholds=SETTINGS["genesets"]["thresholds"],

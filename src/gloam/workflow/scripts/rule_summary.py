@@ -18,7 +18,7 @@ signal.signal(
 sys.path.insert(0, str(Path(job.scriptdir).resolve().parents[2]))
 
 from gloam.errors import exit_on_user_error
-from gloam.stages import rule_environment, summarise_runs
+from gloam.stages import rule_environment, summarise_runs, summarise_sensitivity
 
 with rule_environment(job.log[0], job.threads):
     exit_on_user_error(
@@ -29,5 +29,10 @@ with rule_environment(job.log[0], job.threads):
             list(job.input.consensus),
             job.params.thresholds,
             job.output.summary,
+        )
+    )
+    exit_on_user_error(
+        lambda: summarise_sensitivity(
+            job.params.runs, list(job.input.consensus), job.output.sensitivity
         )
     )
