@@ -99,6 +99,7 @@ from gloam.responsive import (
 from gloam.robustness import hard_labels, zscore_rows
 
 __all__ = [
+    "flat_profiles",
     "NOISE_LABEL",
     "FLAT_LABEL",
     "CHANGE_STATUSES",
@@ -588,6 +589,28 @@ def _fit_shared(
     return centroids[order_clusters_by_peak_time(centroids, times)]
 
 
+def flat_profiles(
+    profiles: ConditionProfiles,
+    test_table: pd.DataFrame | None,
+    min_log2_range: float,
+    fdr: float,
+) -> np.ndarray:
+    """Which gene-condition profiles do not change: bool array (n_genes, n_conditions).
+
+    Flat when the condition's mean profile has a log2 range below ``min_log2_range`` (or none
+    at all), or, with a test table holding ``time_fdr_<c>``, when its change over time in that
+    condition is not significant at ``fdr``: the rule of gloam's gene selection, per condition.
+    """
+    spread = np.ptp(profiles.values, axis=2)
+    flat = (spread < min_log2_range) | (spread <= 0)
+    if test_table is not None:
+        time_fdr = np.column_stack(
+            [test_table[f"time_fdr_{c}"].to_numpy(np.float64) for c in profiles.conditions]
+        )
+        flat |= ~np.isnan(time_fdr) & (time_fdr > fdr)
+    return flat
+
+
 def shared_responses(
     data: InteractionTest | ConditionProfiles,
     *,
@@ -689,13 +712,7 @@ def shared_responses(
     delta2 = _noise_setting(noise, n_times)
     X = zscore_rows(cube.reshape(n_genes * n_conditions, n_times))  # gene-major rows
 
-    spread = np.ptp(cube, axis=2)
-    flat = (spread < min_range) | (spread <= 0)
-    if test_table is not None:
-        time_fdr = np.column_stack(
-            [test_table[f"time_fdr_{c}"].to_numpy(np.float64) for c in profiles.conditions]
-        )
-        flat |= ~np.isnan(time_fdr) & (time_fdr > level)
+    flat = flat_profiles(profiles, test_table, min_range, level)
     flat_rows = flat.ravel()
 
     if centroids is None:

@@ -495,6 +495,72 @@ _SCAN_DEFAULTS = {
 }
 
 
+def _solve_at(
+    X: np.ndarray,
+    c: int,
+    m: float,
+    options: Mapping[str, Any],
+    *,
+    rng: np.random.Generator,
+    replicates: np.ndarray | None = None,
+    sample_column: np.ndarray | None = None,
+) -> Any:
+    """:func:`gloam.partition.solve_partition` at ``c`` with the scan ``options``
+    (:data:`SCAN_SETTINGS`) and the job's thread cap; shared by every scan over c."""
+    from gloam.partition import solve_partition
+
+    return solve_partition(
+        X,
+        c,
+        m,
+        rng=rng,
+        n_starts=int(options["n_starts"]),
+        tol=float(options["tol"]),
+        max_iter=int(options["max_iter"]),
+        init=options["init"],
+        precision=options["precision"],
+        n_threads=int(os.environ.get("GLOAM_NUM_THREADS", "0")) or None,
+        min_starts_at_optimum=int(options["min_starts_at_optimum"]),
+        max_starts=int(options["max_starts"]),
+        noise_class=bool(options["noise_class"]),
+        n_resamples=int(options["n_resamples"]),
+        replicates=replicates,
+        sample_column=sample_column,
+    )
+
+
+def _structure_and_judgement(
+    X: np.ndarray,
+    m: float,
+    table: pd.DataFrame,
+    options: Mapping[str, Any],
+    *,
+    rng: np.random.Generator,
+) -> tuple[Any, pd.DataFrame]:
+    """The structure test of ``X`` and every scanned c judged with the selection ``options``
+    (the keys of :data:`_SELECTION_DEFAULTS`); shared by a run's selection and the comparison."""
+    from gloam.structure import structure_test
+    from gloam.validity import judge_n_clusters
+
+    structure = structure_test(
+        X,
+        m,
+        n_null=int(options["structure_n_null"]),
+        alpha=float(options["structure_alpha"]),
+        rng=rng,
+    )
+    judged = judge_n_clusters(
+        table,
+        structure_present=structure.present,
+        stable_jaccard=float(options["stable_jaccard"]),
+        min_core_genes=int(options["min_core_genes"]),
+        max_centroid_correlation=float(options["max_centroid_correlation"]),
+        min_coherence=float(options["min_coherence"]),
+        separation_alpha=float(options["structure_alpha"]),
+    )
+    return structure, judged
+
+
 def run_scan(
     scan_input: PathLike,
     n_clusters: int,
@@ -513,28 +579,18 @@ def run_scan(
     string: one row of the validity table). A c not below the number of genes is refused with
     a message saying how to fix it (:func:`check_clusters_fit_genes`).
     """
-    from gloam.partition import solve_partition
 
     data = read_scan_input(scan_input)
     c = int(n_clusters)
     n_genes = len(data.zscores)
     check_clusters_fit_genes(c, n_genes)
     options = {**_SCAN_DEFAULTS, **{k: settings[k] for k in SCAN_SETTINGS if k in settings}}
-    partition = solve_partition(
+    partition = _solve_at(
         data.zscores.to_numpy(),
         c,
         data.m,
+        options,
         rng=np.random.default_rng([int(seed), c]),
-        n_starts=int(options["n_starts"]),
-        tol=float(options["tol"]),
-        max_iter=int(options["max_iter"]),
-        init=options["init"],
-        precision=options["precision"],
-        n_threads=int(os.environ.get("GLOAM_NUM_THREADS", "0")) or None,
-        min_starts_at_optimum=int(options["min_starts_at_optimum"]),
-        max_starts=int(options["max_starts"]),
-        noise_class=bool(options["noise_class"]),
-        n_resamples=int(options["n_resamples"]),
         replicates=data.replicates,
         sample_column=data.sample_column,
     )
@@ -640,8 +696,7 @@ def run_select(
     (:func:`consensus_arrays`). Every quality flag is also a one-line warning in the log.
     """
     from gloam.errors import QUALITY_FLAGS, raise_flag
-    from gloam.structure import structure_test
-    from gloam.validity import judge_n_clusters, recommended_n_clusters
+    from gloam.validity import recommended_n_clusters
 
     options = {**_SELECTION_DEFAULTS, **settings}
     data = read_scan_input(scan_input)
@@ -653,21 +708,8 @@ def run_select(
         file_of[int(metrics["n_clusters"])] = path
         rows.append(metrics)
     table = pd.DataFrame(rows)
-    structure = structure_test(
-        data.zscores.to_numpy(),
-        data.m,
-        n_null=int(options["structure_n_null"]),
-        alpha=float(options["structure_alpha"]),
-        rng=np.random.default_rng([int(seed), 1]),
-    )
-    judged = judge_n_clusters(
-        table,
-        structure_present=structure.present,
-        stable_jaccard=float(options["stable_jaccard"]),
-        min_core_genes=int(options["min_core_genes"]),
-        max_centroid_correlation=float(options["max_centroid_correlation"]),
-        min_coherence=float(options["min_coherence"]),
-        separation_alpha=float(options["structure_alpha"]),
+    structure, judged = _structure_and_judgement(
+        data.zscores.to_numpy(), data.m, table, options, rng=np.random.default_rng([int(seed), 1])
     )
     recommended = recommended_n_clusters(judged)
     if recommended > 1:
@@ -1575,6 +1617,7 @@ def _compare_into(
     """The work of :func:`run_comparison`; returns the ``selection.json`` record."""
     from gloam.compare import (
         changed_gene_sets,
+        flat_profiles,
         plot_transitions,
         shared_responses,
         transition_table,
@@ -1582,11 +1625,9 @@ def _compare_into(
     from gloam.consensus import order_clusters_by_peak_time
     from gloam.fuzzifier import schwaemmle_jensen_m
     from gloam.io import write_gmt, write_lines
-    from gloam.partition import solve_partition
     from gloam.plots import save_figure
     from gloam.prepare import zscore_rows
-    from gloam.structure import structure_test
-    from gloam.validity import judge_n_clusters, recommended_n_clusters
+    from gloam.validity import recommended_n_clusters
 
     selection = {**_SELECTION_DEFAULTS, **selection_settings}
     scan = {**_SCAN_DEFAULTS, **scan_settings}
@@ -1597,10 +1638,7 @@ def _compare_into(
     profiles = test.profiles
     cube = profiles.values
     n_times = cube.shape[2]
-    time_fdr = np.column_stack(
-        [test.table[f"time_fdr_{c}"].to_numpy(dtype=float) for c in profiles.conditions]
-    )
-    flat = (np.ptp(cube, axis=2) < min_log2_range) | (~np.isnan(time_fdr) & (time_fdr > fdr))
+    flat = flat_profiles(profiles, test.table, min_log2_range, fdr)
     changing, _, _ = zscore_rows(cube.reshape(-1, n_times)[~flat.ravel()])
     n_rows = changing.shape[0]
     numbers = sorted(int(c) for c in cluster_numbers if 2 <= int(c) < n_rows)
@@ -1613,38 +1651,11 @@ def _compare_into(
     m = schwaemmle_jensen_m(n_rows, n_times)
     rows, centroids_at = [], {}
     for c in numbers:
-        partition = solve_partition(
-            changing,
-            c,
-            m,
-            rng=np.random.default_rng([int(seed), 7, c]),
-            n_starts=int(scan["n_starts"]),
-            tol=float(scan["tol"]),
-            max_iter=int(scan["max_iter"]),
-            init=scan["init"],
-            precision=scan["precision"],
-            min_starts_at_optimum=int(scan["min_starts_at_optimum"]),
-            max_starts=int(scan["max_starts"]),
-            noise_class=bool(scan["noise_class"]),
-            n_resamples=int(scan["n_resamples"]),
-        )
+        partition = _solve_at(changing, c, m, scan, rng=np.random.default_rng([int(seed), 7, c]))
         rows.append(partition.metrics)
         centroids_at[c] = partition.centroids
-    structure = structure_test(
-        changing,
-        m,
-        n_null=int(selection["structure_n_null"]),
-        alpha=float(selection["structure_alpha"]),
-        rng=np.random.default_rng([int(seed), 8]),
-    )
-    judged = judge_n_clusters(
-        pd.DataFrame(rows),
-        structure_present=structure.present,
-        stable_jaccard=float(selection["stable_jaccard"]),
-        min_core_genes=int(selection["min_core_genes"]),
-        max_centroid_correlation=float(selection["max_centroid_correlation"]),
-        min_coherence=float(selection["min_coherence"]),
-        separation_alpha=float(selection["structure_alpha"]),
+    structure, judged = _structure_and_judgement(
+        changing, m, pd.DataFrame(rows), selection, rng=np.random.default_rng([int(seed), 8])
     )
     chosen = recommended_n_clusters(judged)
     judged["used"] = judged["n_clusters"] == chosen
