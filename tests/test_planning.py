@@ -16,6 +16,7 @@ import pytest
 import yaml
 
 from gloam.errors import GloamError
+from gloam.artifacts import link_shared
 from gloam.planning import (
     DEMO_DATASET,
     SCHEMA_DIR,
@@ -289,6 +290,7 @@ def test_a_datasets_table_with_comments_and_defaults(tmp_path):
             "samples": "s.tsv",
             "value_type": "counts",
             "layer": "",
+            "time_unit": "",
         }
     }
 
@@ -399,3 +401,81 @@ def test_gloam_run_names_the_installed_profiles(tmp_path):
     own = tmp_path / "mine"
     own.mkdir()
     assert _packaged_profiles(["--profile", str(own)]) == ["--profile", str(own)]
+
+
+# ------------------------------------------------------------------ shared upstream jobs
+
+
+def test_variants_share_the_jobs_whose_settings_they_share(tmp_path):
+    """Equal upstream settings give equal files, so only the first run computes them."""
+    config = {
+        "variants": {
+            "base": {},
+            "strict": {"selection": {"stable_jaccard": 0.8}},
+            "more": {"scan": {"n_starts": 9}},
+            "sd": {"preparation": {"min_sd": 0.2}},
+            "wide": {"scan": {"max_clusters": 12}},
+        }
+    }
+    plan = make_plan(config, cwd=tmp_path)
+    base, strict, more, sd, wide = (f"{DEMO_DATASET}.{v}" for v in config["variants"])
+    # A selection setting is downstream of the preparation and the scans.
+    assert plan.owner(strict, "prepare") == base and plan.owner(strict, "scan") == base
+    # The number of starts is read by the scans, not by the preparation.
+    assert plan.owner(more, "prepare") == base and plan.owner(more, "scan") == more
+    # A preparation setting changes everything after it.
+    assert plan.owner(sd, "prepare") == sd and plan.owner(sd, "scan") == sd
+    # The range of c is not a scan-job setting: a wider range adds c, it reuses the others.
+    assert plan.owner(wide, "scan") == base
+    assert plan.scan_files(wide)[0] == plan.path(base, "scan/c2.npz")
+    assert plan.scan_files(wide)[-1] == plan.path(base, "scan/c12.npz")
+    # The comparison depends on the rule for c, so only identical settings share it.
+    assert plan.sharing_runs("compare") == []
+    assert plan.sharing_runs("prepare") == [strict, more, wide]
+    assert plan.shared_files(strict, "prepare")["gene_report"] == plan.path(
+        base, "prepared/gene_report.tsv"
+    )
+    # Every run still lists its complete folder as its outputs.
+    assert plan.path(strict, "prepared/gene_report.tsv") in plan.run_outputs(strict)
+
+
+def test_without_variants_every_run_owns_its_jobs(tmp_path):
+    plan = make_plan({}, cwd=tmp_path)
+    assert plan.sharing_runs("prepare") == plan.sharing_runs("scan") == []
+    assert plan.owner(DEMO_DATASET, "scan") == DEMO_DATASET
+    # No run shares: the producing rules keep the general run-id pattern.
+    assert plan.owner_pattern("prepare") == plan.owner_pattern("compare")
+    assert plan.run_pattern([]) == "(?!)"
+
+
+def test_shared_files_are_hard_links_and_folders_are_linked_file_by_file(tmp_path):
+    """POSIX link(2): a hard link is the same inode, so it costs no second copy on disk."""
+    owner = tmp_path / "owner"
+    (owner / "comparison" / "genesets").mkdir(parents=True)
+    (owner / "a.tsv").write_text("x\n", encoding="utf-8")
+    (owner / "comparison" / "genesets" / "s.gmt").write_text("g\n", encoding="utf-8")
+    run = tmp_path / "run"
+    link_shared(
+        {"a": owner / "a.tsv", "comparison": owner / "comparison"},
+        {"a": run / "prepared" / "a.tsv", "comparison": run / "comparison"},
+    )
+    assert (run / "prepared" / "a.tsv").stat().st_ino == (owner / "a.tsv").stat().st_ino
+    linked = run / "comparison" / "genesets" / "s.gmt"
+    assert linked.read_text(encoding="utf-8") == "g\n"
+    assert linked.stat().st_nlink == 2
+    assert not [path for path in run.rglob(".*")]
+    with pytest.raises(GloamError, match="does not exist"):
+        link_shared({"a": owner / "gone.tsv"}, {"a": run / "gone.tsv"})
+
+
+def test_the_time_unit_belongs_to_the_dataset(tmp_path):
+    (tmp_path / "datasets.tsv").write_text(
+        "name\tmatrix\tsamples\ttime_unit\nmin_data\tm.tsv\ts.tsv\tmin\nday_data\tm.tsv\ts.tsv\t\n",
+        encoding="utf-8",
+    )
+    plan = make_plan(
+        {"datasets": "datasets.tsv", "figures": {"time_unit": "d"}}, cwd=tmp_path, check_files=False
+    )
+    assert plan.run_settings("min_data")["time_unit"] == "min"
+    # An empty cell falls back to the config's unit (the schema's documented default rule).
+    assert plan.run_settings("day_data")["time_unit"] == "d"

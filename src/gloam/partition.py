@@ -231,9 +231,9 @@ def solve_partition(
     Returns
     -------
     PartitionAtC
-        ``metrics`` has the keys ``n_clusters``, ``m``, ``objective``,
-        ``partition_coefficient``, ``partition_entropy``, ``xie_beni``, ``fukuyama_sugeno``,
-        ``min_centroid_distance`` (fuzzy c-means consensus), ``max_centroid_correlation``,
+        ``metrics`` has the keys ``n_clusters``, ``m``, ``objective``, every index of
+        :data:`gloam.validity.INDICES` (of the fuzzy c-means consensus),
+        ``max_centroid_correlation``,
         ``n_starts``, ``n_at_optimum``, ``n_not_converged``, ``mean_start_agreement``,
         ``min_jaccard``, ``mean_jaccard``, ``min_core_genes``, ``n_noise``, ``noise_distance``
         ``resampling`` (``replicates``, ``genes`` or ``none``) and ``max_pair_p_value`` (the
@@ -242,13 +242,7 @@ def solve_partition(
     """
     from gloam.consensus import consensus_partition
     from gloam.fcm import FuzzyPartition
-    from gloam.validity import (
-        fukuyama_sugeno,
-        min_centroid_distance,
-        partition_coefficient,
-        partition_entropy,
-        xie_beni,
-    )
+    from gloam.validity import index_values
 
     X = np.ascontiguousarray(X, dtype=np.float64)
     if min_starts_at_optimum > max_starts:
@@ -332,13 +326,7 @@ def solve_partition(
         "n_clusters": int(n_clusters),
         "m": float(m),
         "objective": float(fcm_partition.objective),
-        "partition_coefficient": partition_coefficient(fcm_partition.memberships),
-        "partition_entropy": partition_entropy(fcm_partition.memberships),
-        "xie_beni": xie_beni(X, fcm_partition.centroids, fcm_partition.memberships, m),
-        "fukuyama_sugeno": fukuyama_sugeno(
-            X, fcm_partition.centroids, fcm_partition.memberships, m
-        ),
-        "min_centroid_distance": min_centroid_distance(fcm_partition.centroids),
+        **index_values(X, fcm_partition.centroids, fcm_partition.memberships, m),
         "max_centroid_correlation": _max_offdiagonal(centroid_correlation(centroids)),
         "min_coherence": float(centroid_coherence(X, centroids).min()),
         "n_starts": int(result.n_starts),

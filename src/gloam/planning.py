@@ -21,13 +21,17 @@ from __future__ import annotations
 import copy
 import csv
 import functools
+import json
 import math
 import os
+import re
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
+from gloam.artifacts import FIGURES as ARTIFACT_FIGURES
+from gloam.artifacts import RUN_FILES, run_targets
 from gloam.errors import GloamError
 
 __all__ = [
@@ -39,6 +43,8 @@ __all__ = [
     "START_SETTINGS",
     "FIGURES",
     "DEMO_DATASET",
+    "SHARED_STAGES",
+    "RUN_ID_PATTERN",
     "Plan",
     "read_config_file",
     "overlay",
@@ -73,14 +79,26 @@ START_SETTINGS = (
     "n_resamples",
 )
 
-#: Figures of a run, each written as PNG, PDF and SVG under ``figures/``.
-FIGURES = ("profiles", "validity", "fuzzifier", "overview")
+#: Figures of a run written under ``figures/`` (each as PNG, PDF and SVG); the registry of
+#: figures is :data:`gloam.artifacts.FIGURES`.
+FIGURES = tuple(name for name, figure in ARTIFACT_FIGURES.items() if figure.folder == "figures")
+
+#: Stages whose files a run takes from another run with the same upstream settings, and the
+#: files each one writes into its run folder (``comparison`` is a folder).
+SHARED_STAGES = {
+    "prepare": tuple(entry.path for entry in RUN_FILES if entry.writer == "prepare"),
+    "scan": (),
+    "compare": ("comparison",),
+}
+
+#: The shape of a run id (``<dataset>[.<condition>][.<variant>]``), for wildcard constraints.
+RUN_ID_PATTERN = r"[A-Za-z0-9_-]+(?:\.[A-Za-z0-9_-]+){0,2}"
 
 #: Name of the built-in demo dataset (config ``datasets: null``).
 DEMO_DATASET = "cold_leaf"
 
 _NAME_CHARACTERS = frozenset("abcdefghijklmnopqrstuvwxyzABCDEFGHIJKLMNOPQRSTUVWXYZ0123456789_-")
-_DATASET_COLUMNS = ("name", "matrix", "samples", "value_type", "layer")
+_DATASET_COLUMNS = ("name", "matrix", "samples", "value_type", "layer", "time_unit")
 
 # Threads of each rule unless the config's resources section sets them. The m check of
 # `prepare` clusters shuffled data and gets 2; a run has one scan job per c, so scans side by
@@ -315,8 +333,8 @@ def read_datasets(path: str) -> dict[str, dict[str, str]]:
     Returns
     -------
     dict
-        Dataset name -> row with keys ``name``, ``matrix``, ``samples``, ``value_type`` and
-        ``layer`` (defaults filled in), in the table's order.
+        Dataset name -> row with keys ``name``, ``matrix``, ``samples``, ``value_type``,
+        ``layer`` and ``time_unit`` (defaults filled in), in the table's order.
 
     Raises
     ------
@@ -397,6 +415,11 @@ def _conditions(dataset: Mapping[str, str], base: Path) -> list[str | None]:
 # ---------------------------------------------------------------- the plan
 
 
+def _output_name(relative: str) -> str:
+    """Snakemake output name of a run file: ``prepared/zscores.tsv`` -> ``zscores``."""
+    return Path(relative).name.split(".")[0]
+
+
 @dataclass(frozen=True)
 class Plan:
     """Every run of a workflow, with its settings, file paths and resource requests.
@@ -407,10 +430,11 @@ class Plan:
         The validated config, every default filled in.
     datasets : dict
         Dataset name -> datasets-table row (``name``, ``matrix``, ``samples``,
-        ``value_type``, ``layer``).
+        ``value_type``, ``layer``, ``time_unit``).
     runs : dict
         Run id -> run: ``run``, ``dataset``, ``condition`` and ``variant`` (None when not
-        used), ``value_type``, ``layer`` (None for X) and the merged settings sections
+        used), ``value_type``, ``layer`` (None for X), ``time_unit`` (the dataset's, else
+        the config's ``figures.time_unit``) and the merged settings sections
         ``preparation``, ``fuzzifier``, ``scan`` and ``selection``.
     results_dir : str
         Folder of every result.
@@ -457,7 +481,76 @@ class Plan:
         return sorted(numbers)
 
     def scan_files(self, run: str) -> list[str]:
-        return [self.path(run, f"scan/c{c}.npz") for c in self.cluster_numbers(run)]
+        """The scan files a run's selection reads: its scan owner's, one per scanned c."""
+        owner = self.owner(run, "scan")
+        return [self.path(owner, f"scan/c{c}.npz") for c in self.cluster_numbers(run)]
+
+    # ------------------------------------------------------------ shared upstream jobs
+
+    def upstream_key(self, run: str, stage: str) -> str:
+        """Every setting the files of ``stage`` (prepare, scan or compare) depend on, as text.
+
+        Runs with equal keys would compute the same files, so only the first of them (its
+        *owner*, :meth:`owner`) computes them and the others take them from it.
+        """
+        settings = self.run(run)
+        parts: dict[str, Any] = {
+            "dataset": settings["dataset"],
+            "condition": settings["condition"],
+            "value_type": settings["value_type"],
+            "layer": settings["layer"],
+            "preparation": settings["preparation"],
+            "fuzzifier": settings["fuzzifier"],
+        }
+        if stage in ("scan", "compare"):
+            parts["scan"] = self.start_settings(run)
+        if stage == "compare":
+            parts["selection"] = settings["selection"]
+            parts["cluster_numbers"] = self.cluster_numbers(run)
+        elif stage not in SHARED_STAGES:
+            raise KeyError(f"no shared stage {stage!r}")
+        return json.dumps(parts, sort_keys=True, default=str)
+
+    @functools.cached_property
+    def _owners(self) -> dict[tuple[str, str], str]:
+        owners: dict[tuple[str, str], str] = {}
+        for stage in SHARED_STAGES:
+            first: dict[str, str] = {}
+            for run in self.runs:
+                owners[run, stage] = first.setdefault(self.upstream_key(run, stage), run)
+        return owners
+
+    def owner(self, run: str, stage: str) -> str:
+        """The run whose job makes the ``stage`` files of ``run`` (``run`` itself, or the
+        first run in the plan with the same upstream settings)."""
+        self.run(run)
+        return self._owners[run, stage]
+
+    def sharing_runs(self, stage: str) -> list[str]:
+        """Runs that take their ``stage`` files from another run."""
+        return [run for run in self.runs if self._owners[run, stage] != run]
+
+    def run_pattern(self, runs: Sequence[str]) -> str:
+        """A wildcard constraint matching exactly ``runs`` (nothing when empty)."""
+        if not runs:
+            return "(?!)"
+        return "|".join(re.escape(run) for run in runs)
+
+    def owner_pattern(self, stage: str) -> str:
+        """A wildcard constraint for the job that computes ``stage``: every run id when no
+        run shares (a long alternation slows a large grid's planning), else the owners."""
+        if not self.sharing_runs(stage):
+            return RUN_ID_PATTERN
+        return self.run_pattern([run for run in self.runs if self.owner(run, stage) == run])
+
+    def shared_outputs(self, stage: str) -> dict[str, str]:
+        """Output name -> path pattern (wildcard ``{run}``) of the files a run shares."""
+        return {_output_name(name): self.path("{run}", name) for name in SHARED_STAGES[stage]}
+
+    def shared_files(self, run: str, stage: str) -> dict[str, str]:
+        """Output name -> the owner's file, for the job that links them into ``run``."""
+        owner = self.owner(run, stage)
+        return {_output_name(name): self.path(owner, name) for name in SHARED_STAGES[stage]}
 
     def run_outputs(self, run: str) -> list[str]:
         """Every file a finished run leaves behind.
@@ -465,26 +558,7 @@ class Plan:
         All of them are targets: Snakemake remakes a missing output only when it is asked
         for, so a deleted file that no rule reads is made again only if listed.
         """
-        names = [
-            "prepared/zscores.tsv",
-            "prepared/gene_report.tsv",
-            "prepared/summary.tsv",
-            "fuzzifier.json",
-            "fuzzifier_curve.tsv",
-            "memberships.tsv",
-            "centroids.tsv",
-            "clusters.tsv",
-            "robustness.tsv",
-            "validity.tsv",
-            "selection.json",
-            "gloam.h5ad",
-            "genesets",
-            "comparison",
-            "report.html",
-        ]
-        names += [
-            f"figures/{figure}.{kind}" for figure in FIGURES for kind in ("png", "pdf", "svg")
-        ]
+        names = run_targets()
         return [self.path(run, name) for name in names]
 
     def summary_path(self) -> str:
@@ -512,7 +586,7 @@ class Plan:
             "cluster_numbers": self.cluster_numbers(run),
             "fdr": settings["preparation"]["fdr"],
             "min_log2_range": settings["preparation"]["min_log2_range"],
-            "prefix": run,
+            "prefix": self.owner(run, "compare"),
         }
 
     def report_settings(self, run: str) -> dict[str, Any]:
@@ -571,7 +645,7 @@ class Plan:
         return {
             **{key: settings[key] for key in ("run", "dataset", "condition", "variant")},
             "seed": self.config["seed"],
-            "time_unit": self.config["figures"]["time_unit"],
+            "time_unit": settings["time_unit"],
             **{section: settings[section] for section in SETTING_SECTIONS},
         }
 
@@ -672,6 +746,7 @@ def make_plan(
                 "samples": demo_files["samples"],
                 "value_type": "counts",
                 "layer": "",
+                "time_unit": "",
             }
         }
     else:
@@ -712,6 +787,7 @@ def make_plan(
                     "variant": variant,
                     "value_type": dataset["value_type"],
                     "layer": dataset["layer"] or None,
+                    "time_unit": dataset.get("time_unit") or checked["figures"]["time_unit"],
                     **settings,
                 }
     return Plan(

@@ -49,6 +49,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from gloam.artifacts import FIGURES, file_meaning
 from gloam.errors import QUALITY_FLAGS, GloamError, GloamWarning
 from gloam.io import atomic_output
 
@@ -79,30 +80,9 @@ RESEARCH_ONLY_NOTE = (
     "no clinical or diagnostic decision should rest on them."
 )
 
-#: One-line caption of each figure, by file stem, in the order the page shows them.
-FIGURE_CAPTIONS: dict[str, str] = {
-    "profiles": (
-        "Each cluster's centroid over time with the central 50 % and 90 % of its core genes, "
-        "the noise class apart; z-scores above, mean log2 expression below."
-    ),
-    "overview": (
-        "Per cluster: core size, robustness (mean resampling Jaccard against the stable "
-        "level), peak time and similarity to the nearest other cluster."
-    ),
-    "validity": (
-        "For every scanned c, the criteria that decide c with their thresholds; the c used "
-        "is marked."
-    ),
-    "fuzzifier": (
-        "How crisp clusterings of shuffled data are as m grows, with the m used and the "
-        "formula's m marked."
-    ),
-    "transitions": (
-        "Conditions compared: where genes move between the shared responses from the first "
-        "condition to the second; the solid part of each square is the genes called changed "
-        "(interaction FDR at the level and a different response)."
-    ),
-}
+#: One-line caption of each figure, by file stem, in the order the page shows them (the
+#: figure registry :data:`gloam.artifacts.FIGURES` owns them).
+FIGURE_CAPTIONS: dict[str, str] = {name: figure.caption for name, figure in FIGURES.items()}
 
 #: Full references by their in-text form, as in the README's reference list.
 REFERENCES: dict[str, str] = {
@@ -178,39 +158,6 @@ _DROP_MEANINGS = {
     "not_in_top_variable": "outside the {top_variable} most variable genes",
     "kept": "clustered",
 }
-
-# Known output files: a pattern on the path relative to the run folder, and what it holds.
-_FILE_MEANINGS: tuple[tuple[str, str], ...] = (
-    (r"prepared/prepared\.h5ad", "prepared data (AnnData: z-scores, log means, input values)"),
-    (r"prepared/zscores\.tsv", "z-score profile of every clustered gene"),
-    (r"prepared/gene_report\.tsv", "every input gene: kept or why dropped, test statistics"),
-    (r"prepared/summary\.tsv", "genes removed by each preparation step"),
-    (r"prepared/scan_input\.npz", "input of every scan job"),
-    (r"fuzzifier\.json", "choice of m and its check on shuffled data"),
-    (r"fuzzifier_curve\.tsv", "shuffled-data curve over m"),
-    (r"scan/c(\d+)\.npz", "partition and evidence for one c"),
-    (r"validity\.tsv", "criteria and indices for every scanned c"),
-    (r"selection\.json", "decision on c, structure test, quality flags"),
-    (r"consensus\.npz", "chosen partition, clusters in peak-time order"),
-    (r"memberships\.tsv", "memberships of every gene (full precision)"),
-    (r"clusters\.tsv", "one row per cluster"),
-    (r"robustness\.tsv", "resampling interval and core share of every membership"),
-    (r"centroids\.tsv", "centroid of every cluster (z-score units)"),
-    (r"genesets/.*_core[^/]*\.gmt", "core gene sets (GMT)"),
-    (r"genesets/.*_core[^/]*\.txt", "core genes of one cluster, one ID per line"),
-    (r"genesets/.*_ranked\.tsv", "every gene ranked by membership in one cluster"),
-    (r"genesets/background\.txt", "background for enrichment: every clustered gene"),
-    (r"gloam\.h5ad", "prepared data with the clustering beside the genes (AnnData)"),
-    (r"figures/.*\.png", "figure, PNG (300 dpi)"),
-    (r"figures/.*\.pdf", "figure, PDF (fonts embedded)"),
-    (r"figures/.*\.svg", "figure, SVG (text kept as text)"),
-    (r"comparison/selection\.json", "conditions compared: whether, how many shared responses"),
-    (r"comparison/responses\.tsv", "each gene's response in each condition and its change"),
-    (r"comparison/transitions\.tsv", "genes by response in one condition and in the other"),
-    (r"comparison/genesets/.*", "changed genes as gene sets, with their background"),
-    (r"comparison/transitions\.(png|pdf|svg)", "transitions figure"),
-)
-
 
 # ------------------------------------------------------------------ reading a run
 
@@ -1250,10 +1197,8 @@ def _methods_section(run: RunRecord) -> str:
 
 
 def _file_meaning(relative: str) -> str:
-    for pattern, meaning in _FILE_MEANINGS:
-        if re.fullmatch(pattern, relative):
-            return meaning
-    return ""
+    """What a run file holds, from the registry of run files (gloam.artifacts)."""
+    return file_meaning(relative)
 
 
 _FILE_GROUPS = (

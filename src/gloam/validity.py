@@ -31,7 +31,8 @@ References
 from __future__ import annotations
 
 import math
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass
 from typing import TYPE_CHECKING
 
 import numpy as np
@@ -49,6 +50,9 @@ __all__ = [
     "xie_beni",
     "fukuyama_sugeno",
     "min_centroid_distance",
+    "ValidityIndex",
+    "INDICES",
+    "index_values",
     "validity_table",
     "judge_n_clusters",
     "recommended_n_clusters",
@@ -61,17 +65,6 @@ __all__ = [
     "MIN_COHERENCE",
 ]
 
-#: Columns of :func:`validity_table`, in order (``mean_stability`` only when stability is given).
-VALIDITY_COLUMNS = (
-    "n_clusters",
-    "m",
-    "objective",
-    "partition_coefficient",
-    "partition_entropy",
-    "xie_beni",
-    "fukuyama_sugeno",
-    "min_centroid_distance",
-)
 
 #: The criteria every cluster of a c must meet, in the order they are reported.
 CRITERIA = ("structure", "robust", "sizeable", "distinct", "coherent", "separated")
@@ -307,6 +300,95 @@ def fukuyama_sugeno(X: np.ndarray, V: np.ndarray, U: np.ndarray, m: float) -> fl
     return float(compactness - separation)
 
 
+@dataclass(frozen=True)
+class ValidityIndex:
+    """One validity index of a partition, computed for every scanned c.
+
+    Attributes
+    ----------
+    name : str
+        Column of the validity table (and key of the scan's ``metrics``).
+    compute : callable
+        ``compute(X, V, U, m) -> float`` on the data (genes x time points, z-scores), the
+        centroids (c x time points), the memberships (genes x c) and the fuzzifier.
+    better : str
+        ``larger`` or ``smaller``: which values mean a better partition.
+    unit : str
+        Unit of the value, for tables and axes.
+    reference : str
+        The publication that defines it.
+    """
+
+    name: str
+    compute: Callable[[np.ndarray, np.ndarray, np.ndarray, float], float]
+    better: str
+    unit: str
+    reference: str
+
+
+#: The validity indices of every scanned c, in table order. They are diagnostics shown in
+#: the validity table; the number of clusters is decided by :data:`CRITERIA`. Adding one
+#: here adds its column to the validity tables of runs and scans (test: tests/test_artifacts.py
+#: checks that the README documents every index).
+INDICES: dict[str, ValidityIndex] = {
+    index.name: index
+    for index in (
+        ValidityIndex(
+            "partition_coefficient",
+            lambda X, V, U, m: partition_coefficient(U),
+            "larger",
+            "unitless, 1/c to 1",
+            "Bezdek 1981",
+        ),
+        ValidityIndex(
+            "partition_entropy",
+            lambda X, V, U, m: partition_entropy(U),
+            "smaller",
+            "nats, 0 to ln c",
+            "Bezdek 1981",
+        ),
+        ValidityIndex("xie_beni", xie_beni, "smaller", "unitless", "Xie & Beni 1991"),
+        ValidityIndex(
+            "fukuyama_sugeno",
+            fukuyama_sugeno,
+            "smaller",
+            "squared z-score units",
+            "Fukuyama & Sugeno 1989",
+        ),
+        ValidityIndex(
+            "min_centroid_distance",
+            lambda X, V, U, m: min_centroid_distance(V),
+            "larger",
+            "squared z-score units",
+            "Schwämmle & Jensen 2010",
+        ),
+    )
+}
+
+
+#: Columns of :func:`validity_table`, in order (``mean_stability`` only when stability is given).
+VALIDITY_COLUMNS = ("n_clusters", "m", "objective", *INDICES)
+
+
+def index_values(X: np.ndarray, V: np.ndarray, U: np.ndarray, m: float) -> dict[str, float]:
+    """Every index of :data:`INDICES` for one partition.
+
+    Parameters
+    ----------
+    X : ndarray of shape (n_genes, n_timepoints)
+    V : ndarray of shape (n_clusters, n_timepoints)
+    U : ndarray of shape (n_genes, n_clusters)
+    m : float
+        Fuzzifier of the partition (> 1).
+
+    Returns
+    -------
+    dict
+        Index name -> value, in the order of :data:`INDICES`.
+    """
+    return {name: float(index.compute(X, V, U, m)) for name, index in INDICES.items()}
+
+
 def validity_table(
     X: np.ndarray,
     partitions: Mapping[int, FuzzyPartition],
@@ -380,11 +462,7 @@ def validity_table(
             "n_clusters": int(c),
             "m": m,
             "objective": float(partition.objective),
-            "partition_coefficient": partition_coefficient(U),
-            "partition_entropy": partition_entropy(U),
-            "xie_beni": xie_beni(X, V, U, m),
-            "fukuyama_sugeno": fukuyama_sugeno(X, V, U, m),
-            "min_centroid_distance": min_centroid_distance(V),
+            **index_values(X, V, U, m),
         }
         if stability is not None:
             row["mean_stability"] = float(stability[c])

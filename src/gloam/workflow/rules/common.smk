@@ -10,7 +10,7 @@ import sys
 from snakemake.exceptions import WorkflowError
 
 from gloam.errors import GloamError
-from gloam.planning import make_plan
+from gloam.planning import RUN_ID_PATTERN, make_plan
 
 
 # A mistake in the config or the datasets table ends planning with one line that names it
@@ -29,7 +29,7 @@ SETTINGS = PLAN.config
 # pattern made a large grid's DAG build measurably slower. No part can hold a "/", so paths
 # stay unambiguous; get_run() rejects an id that is not a run, naming the runs.
 wildcard_constraints:
-    run=r"[A-Za-z0-9_-]+(?:\.[A-Za-z0-9_-]+){0,2}",
+    run=RUN_ID_PATTERN,
     c=r"\d+",
 
 
@@ -69,6 +69,22 @@ def get_dataset_files(wildcards):
 def get_scan_files(wildcards):
     get_run(wildcards)
     return PLAN.scan_files(wildcards.run)
+
+
+def shared_inputs(stage):
+    """The owner's files that a run sharing ``stage`` links into its folder."""
+
+    @per_job
+    def inputs(wildcards):
+        get_run(wildcards)
+        return PLAN.shared_files(wildcards.run, stage)
+
+    return inputs
+
+
+@per_job
+def get_time_unit(wildcards):
+    return get_run(wildcards)["time_unit"]
 
 
 @per_job

@@ -4,6 +4,8 @@
 
 
 rule compare:
+    wildcard_constraints:
+        run=PLAN.owner_pattern("compare"),
     input:
         prepared=run_path("{run}", "prepared/prepared.h5ad"),
         gene_report=run_path("{run}", "prepared/gene_report.tsv"),

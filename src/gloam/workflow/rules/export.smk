@@ -99,7 +99,7 @@ rule core_genes:
         profiles_svg=run_path("{run}", "figures/profiles.svg"),
     params:
         thresholds=SETTINGS["genesets"]["thresholds"],
-        time_unit=SETTINGS["figures"]["time_unit"],
+        time_unit=get_time_unit,
     log:
         "logs/{run}/core_genes.log",
     benchmark:

@@ -28,6 +28,8 @@ rule demo_data:
 
 
 rule prepare:
+    wildcard_constraints:
+        run=PLAN.owner_pattern("prepare"),
     input:
         unpack(get_dataset_files),
     output:
