@@ -134,6 +134,17 @@ def test_every_declared_output_exists(finished):
     assert (finished / "results" / "summary.tsv").is_file()
 
 
+def test_every_file_of_a_run_is_registered(finished):
+    """gloam.artifacts owns the layout of a run folder: a file written without an entry there
+    (and so without its meaning, writer and README row) fails here."""
+    from gloam.artifacts import matches
+
+    out = results(finished)
+    written = [path.relative_to(out).as_posix() for path in out.rglob("*") if path.is_file()]
+    assert written
+    assert [name for name in written if matches(name) is None] == []
+
+
 def test_scan_input_is_the_prepared_matrix_with_the_chosen_m(finished):
     """What the scan jobs read equals the prepared matrix (prepared.h5ad, genes x columns) and
     fuzzifier.json's m, and the scans used that m."""
@@ -621,6 +632,30 @@ def test_variants_make_one_run_per_dataset_and_variant(tmp_path):
     assert f"results/{RUN}.m16/fuzzifier.json" in output
     assert f"results/{RUN}/" not in output
     assert planned_rules(directory)["scan"] == 2 * 5
+
+
+def test_variants_share_upstream_jobs_and_keep_complete_folders(finished, tmp_path):
+    """A variant that changes only the rule for c reuses the preparation and the scans of
+    the run it shares them with (hard links, POSIX link(2): the same inode)."""
+    config = {
+        **BASE_CONFIG,
+        "variants": {"base": {}, "strict": {"selection": {"stable_jaccard": 0.9}}},
+    }
+    directory = write_workdir(tmp_path / "run", config)
+    shutil.copytree(finished / "demo", directory / "demo")
+    assert planned_rules(directory)["prepare"] == 1
+    assert planned_rules(directory)["scan"] == 5
+    snakemake(directory)
+    base, strict = (directory / "results" / f"{RUN}.{name}" for name in ("base", "strict"))
+    for name in ("prepared/prepared.h5ad", "prepared/gene_report.tsv", "fuzzifier.json"):
+        assert (strict / name).stat().st_ino == (base / name).stat().st_ino, name
+    assert not (strict / "scan").exists()
+    for name in ("memberships.tsv", "report.html", "genesets/background.txt"):
+        assert (strict / name).is_file() and (strict / name).stat().st_ino != (
+            base / name
+        ).stat().st_ino
+    assert json.loads((strict / "selection.json").read_text())["criteria"]["stable_jaccard"] == 0.9
+    assert planned_rules(directory) == {}
 
 
 def test_separate_conditions_become_runs(tmp_path):
