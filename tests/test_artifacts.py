@@ -9,14 +9,21 @@ The expected paths come from the README, the documentation users read, not from 
 
 from __future__ import annotations
 
-import importlib
 import re
 from pathlib import Path
 
 import numpy as np
 import pytest
 
-from gloam.artifacts import FIGURES, RUN_FILES, file_meaning, matches, run_file, run_targets
+from gloam.artifacts import (
+    FIGURES,
+    RUN_FILES,
+    file_meaning,
+    matches,
+    resolve,
+    run_file,
+    run_targets,
+)
 from gloam.planning import WORKFLOW_DIR
 from gloam.validity import INDICES, VALIDITY_COLUMNS, index_values
 
@@ -28,11 +35,6 @@ def readme_section(title: str) -> str:
     start = README.index(title)
     following = re.search(r"\n##+ ", README[start + len(title) :])
     return README[start : start + len(title) + (following.start() if following else 10**9)]
-
-
-def resolve(dotted: str):
-    module, _, name = dotted.rpartition(".")
-    return getattr(importlib.import_module(module), name)
 
 
 def test_every_target_file_is_documented_in_the_readme_outputs():

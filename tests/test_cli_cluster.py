@@ -219,9 +219,10 @@ def test_a_shortened_option_name_is_refused_not_guessed(prepared, tmp_path, caps
     assert _files_under(out) == []
 
 
-def test_rule_logs_show_gloam_warnings_as_one_line(tmp_path):
-    """Inside a workflow job, gloam's own warnings reach the rule's log as one line, as in
-    the command line; other warnings keep Python's format."""
+def test_rule_logs_show_gloam_warnings_as_one_line(tmp_path, capsys):
+    """Inside a workflow job, gloam's own warnings reach the rule's log as one WARNING record
+    (and the terminal as one line, as in the command line); other warnings also name their
+    category."""
     import warnings
 
     log = tmp_path / "logs" / "prepare.log"
@@ -229,9 +230,11 @@ def test_rule_logs_show_gloam_warnings_as_one_line(tmp_path):
         warnings.simplefilter("always")
         warnings.warn("n_clusters_check was lowered to 9", GloamWarning, stacklevel=1)
         warnings.warn("a library's own note", UserWarning, stacklevel=1)
-    lines = log.read_text(encoding="utf-8").splitlines()
-    assert lines[0] == "gloam: warning: n_clusters_check was lowered to 9"
-    assert "UserWarning: a library's own note" in lines[1]
+    warned = [line for line in log.read_text(encoding="utf-8").splitlines() if " WARNING " in line]
+    assert warned[0].endswith(" WARNING py.warnings: n_clusters_check was lowered to 9")
+    assert " WARNING py.warnings: UserWarning: a library's own note (" in warned[1]
+    terminal = capsys.readouterr().err.splitlines()
+    assert terminal[0] == "gloam: warning: n_clusters_check was lowered to 9"
 
 
 def test_a_prepared_file_that_is_not_h5ad_says_which_file_to_give(tmp_path, capsys):

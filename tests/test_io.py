@@ -491,3 +491,117 @@ def test_a_damaged_npz_is_kept_when_asked_and_a_missing_one_is_not_called_damage
     assert path.exists()
     with pytest.raises(GloamError, match="does not exist; start the run again"):
         read_npz_checked(tmp_path / "c9.npz", "scan file")
+
+
+# ---------------------------------------------------------------- damaged .h5ad, full disk
+
+
+@pytest.mark.parametrize(
+    "damage,kind",
+    [
+        (lambda whole: whole[: len(whole) // 2], "damaged or incomplete"),  # a copy cut short
+        (lambda whole: b"", "empty"),
+        (lambda whole: b"gene\tt0\ng1\t0.5\n", "not an HDF5 file"),
+        # HDF5 file format specification 3.0, II.A: the superblock starts with an 8-byte
+        # signature; zeroing it makes the file unrecognisable as HDF5.
+        (lambda whole: bytes(8) + whole[8:], "damaged or incomplete"),
+    ],
+)
+def test_a_damaged_h5ad_is_named_in_one_line_and_kept(tmp_path, damage, kind):
+    from gloam.io import read_h5ad_checked
+
+    path = tmp_path / "prepared.h5ad"
+    anndata.AnnData(np.arange(6.0).reshape(2, 3)).write_h5ad(path)
+    path.write_bytes(damage(path.read_bytes()))
+    before = path.read_bytes()
+    with pytest.raises(GloamError) as caught:
+        read_h5ad_checked(path, "prepared matrix", remake="run gloam prepare again")
+    message = str(caught.value)
+    assert message.startswith(f"prepared matrix {str(path)!r} cannot be read as .h5ad")
+    assert kind in message and message.endswith("run gloam prepare again")
+    assert "\n" not in message
+    assert path.read_bytes() == before, "a user's file is never removed or changed"
+
+
+def test_a_whole_h5ad_is_read_as_written(tmp_path):
+    from gloam.io import read_h5ad_checked, write_h5ad
+
+    data = anndata.AnnData(
+        np.arange(6.0).reshape(2, 3),
+        obs=pd.DataFrame({"condition": ["a", "b"]}, index=["s1", "s2"]),
+    )
+    write_h5ad(data, tmp_path / "x.h5ad")
+    again = read_h5ad_checked(tmp_path / "x.h5ad", "file", remake="")
+    assert_allclose(again.X, data.X, rtol=0)
+    assert again.obs["condition"].tolist() == ["a", "b"]
+    # anndata's own reader (the reference) sees the same object
+    reference = anndata.read_h5ad(tmp_path / "x.h5ad")
+    assert reference.obs.equals(again.obs) and reference.raw is None
+
+
+def test_a_full_disk_inside_a_writer_is_one_line_and_leaves_nothing(tmp_path):
+    """ENOSPC (POSIX write(2)) raised inside an atomic write; as HDF5 words it via anndata too."""
+    import errno as errno_codes
+
+    for raised in (
+        OSError(errno_codes.ENOSPC, os.strerror(errno_codes.ENOSPC)),
+        OSError("Can't write data (file write failed: errno = 28, error message = 'x')"),
+    ):
+        with pytest.raises(GloamError, match="disk is full") as caught:
+            with atomic_output(tmp_path / "out" / "table.tsv") as temporary:
+                temporary.write_text("half")
+                raise raised
+        assert "run the same command again" in str(caught.value)
+        assert list((tmp_path / "out").iterdir()) == []
+    with pytest.raises(OSError, match="Input/output"):  # other OS errors pass unchanged
+        with atomic_output(tmp_path / "out" / "table.tsv"):
+            raise OSError(errno_codes.EIO, "Input/output error")
+
+
+# ---------------------------------------------------------------- wide matrices
+
+
+@pytest.mark.parametrize("separator,suffix", [("\t", ".tsv"), (",", ".csv")])
+def test_a_wide_matrix_reads_as_pandas_reads_it_by_rows(tmp_path, monkeypatch, separator, suffix):
+    """The reader by columns (many samples, few genes) against pandas.read_csv of the same
+    text (the reference), with quoted cells, missing-value markers and a gene named NA."""
+    rng = np.random.default_rng(3)
+    n_samples = 400
+    values = rng.normal(size=(3, n_samples)).round(6).astype(object)
+    values[0, 5], values[1, 7], values[2, 9] = "", "NA", '"1.5"'
+    genes = ["NA", '"g,1"' if separator == "," else "g\\t1", "0001"]
+    text = separator.join(["gene", *[f"s{i}" for i in range(n_samples)]]) + "\n"
+    text += "".join(
+        separator.join([gene, *map(str, row)]) + "\n"
+        for gene, row in zip(genes, values, strict=True)
+    )
+    path = write_text(tmp_path / f"wide{suffix}", text)
+    monkeypatch.setattr(gloam.io, "_parse_tall", _not_by_rows)
+    matrix = read_matrix(path)
+    monkeypatch.undo()
+    expected = pd.read_csv(
+        path, sep=separator, index_col=0, dtype={"gene": str}, keep_default_na=False,
+        na_values={f"s{i}": ["", "NA"] for i in range(n_samples)},
+    )  # fmt: skip
+    assert matrix.index.tolist() == expected.index.tolist()
+    assert_allclose(matrix.to_numpy(), expected.to_numpy(dtype=float), rtol=0)
+
+
+def _not_by_rows(*args, **kwargs):
+    raise AssertionError("a wide matrix was read by rows")
+
+
+def test_a_wide_matrix_names_the_first_cell_that_is_not_a_number(tmp_path, monkeypatch):
+    n_samples = 300
+    rows = [["1"] * n_samples for _ in range(3)]
+    rows[2][4], rows[1][4], rows[0][9] = "low", "high", "x"
+    text = "gene\t" + "\t".join(f"s{i}" for i in range(n_samples)) + "\n"
+    text += "".join(f"g{k}\t" + "\t".join(row) + "\n" for k, row in enumerate(rows))
+    path = write_text(tmp_path / "wide.tsv", text)
+    monkeypatch.setattr(gloam.io, "_parse_tall", _not_by_rows)
+    with pytest.raises(GloamError, match="value 'high' for gene 'g1' in sample 's4' .*2 such"):
+        read_matrix(path)
+    monkeypatch.undo()  # the same cell is named when the matrix is read by rows
+    monkeypatch.setattr(gloam.io, "_WIDE_MAX_ROWS", 0)
+    with pytest.raises(GloamError, match="value 'high' for gene 'g1' in sample 's4' .*2 such"):
+        read_matrix(path)

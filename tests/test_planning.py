@@ -15,8 +15,8 @@ from pathlib import Path
 import pytest
 import yaml
 
-from gloam.errors import GloamError
 from gloam.artifacts import link_shared
+from gloam.errors import GloamError
 from gloam.planning import (
     DEMO_DATASET,
     SCHEMA_DIR,
@@ -111,11 +111,12 @@ def test_variants_make_one_run_per_dataset_and_variant_with_merged_settings(tmp_
     assert m16["value_type"] == "log"
     assert plan.start_settings("a.loose") == {key: loose["scan"][key] for key in START_SETTINGS}
     # The summary, the index page and the sensitivity table, then every output of the runs.
-    assert len(plan.final_outputs()) == 3 + 4 * len(plan.run_outputs("a.loose"))
-    assert plan.final_outputs()[:3] == [
+    assert len(plan.final_outputs()) == 4 + 4 * len(plan.run_outputs("a.loose"))
+    assert plan.final_outputs()[:4] == [
         plan.summary_path(),
         plan.index_path(),
         plan.sensitivity_path(),
+        plan.matches_path(),
     ]
 
 

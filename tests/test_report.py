@@ -639,7 +639,11 @@ def _pipeline_run(root: Path) -> Path:
         run / "consensus.npz", SETTINGS["genesets"]["thresholds"], run / "genesets", prefix=RUN
     )
     figures = tuple(run / "figures" / f"fuzzifier.{suffix}" for suffix in ("png", "pdf", "svg"))
-    stages.figure_fuzzifier(run / "fuzzifier.json", run / "fuzzifier_curve.tsv", figures)
+    files = {
+        "fuzzifier.json": run / "fuzzifier.json",
+        "fuzzifier_curve.tsv": run / "fuzzifier_curve.tsv",
+    }
+    stages.figure_fuzzifier(files, {"time_unit": "h"}, figures)
     return run
 
 

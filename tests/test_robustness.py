@@ -11,7 +11,10 @@ External references used here:
   distinct points;
 - Kuhn (1955), the assignment problem, checked by brute force over all permutations
   (``itertools.permutations``);
-- NumPy's ``nanpercentile`` (linear interpolation) and scipy's ``stats.zscore``.
+- NumPy's ``nanpercentile`` (linear interpolation) and scipy's ``stats.zscore``;
+- Davé, R. N. (1991), *Pattern Recognition Letters* 12:657-664: the noise-clustering
+  membership formula, written out in a test; Varadhan & Roland (2008), *Scandinavian
+  Journal of Statistics* 35:335-353: SQUAREM keeps the fixed points of the plain iteration.
 """
 
 from __future__ import annotations
@@ -35,6 +38,7 @@ from gloam.robustness import (
     bootstrap_genes,
     cluster_jaccard,
     hard_labels,
+    recluster_from_centroids,
     resample_replicates,
     resampling_robustness,
     zscore_rows,
@@ -316,6 +320,52 @@ def test_well_separated_responses_are_stable_under_replicate_resampling():
     )
     assert (result.mean_jaccard >= STABLE_JACCARD).all()
     assert (result.membership_low <= result.membership_high).all()
+
+
+def _three_responses(seed: int):
+    rng = np.random.default_rng(seed)
+    t = np.linspace(0.0, 1.0, 6)
+    shapes = np.stack([t, -t, np.sin(2 * np.pi * t)])
+    truth = np.repeat(np.arange(3), 60)
+    X = zscore_rows(shapes[truth] * 2.0 + rng.normal(scale=0.6, size=(truth.size, 6)))
+    return X, truth
+
+
+def test_recluster_from_centroids_returns_the_reference_order_and_daves_memberships():
+    """Warm start from permuted reference centroids: the result comes back in the reference
+    order, and its memberships follow Davé's (1991) formula u_ik = D_ik^(-p) /
+    (sum_j D_ij^(-p) + delta^(-2p)) for the returned centroids (a fixed point)."""
+    X, truth = _three_responses(3)
+    delta2 = noise_distance(X)
+    reference = np.stack([X[truth == k].mean(0) for k in range(3)])
+    order = np.array([2, 0, 1])
+    memberships, noise, centroids = recluster_from_centroids(
+        X, reference[order], 1.5, noise_distance=delta2, tol=1e-10, max_iter=5000
+    )
+    # In the order of the centroids passed: column j holds response order[j].
+    assert np.mean(order[memberships.argmax(1)] == truth) > 0.9
+    D = ((X[:, None, :] - centroids[None]) ** 2).sum(2)
+    weights = D ** (-2.0)  # p = 1 / (m - 1) = 2
+    total = weights.sum(1) + delta2 ** (-2.0)
+    assert_allclose(memberships, weights / total[:, None], atol=1e-8)
+    assert_allclose(noise, delta2 ** (-2.0) / total, atol=1e-8)
+
+
+def test_recluster_from_centroids_accelerated_and_plain_reach_the_same_point():
+    """Varadhan & Roland (2008): the resample's fixed point does not depend on the
+    acceleration; both run to a tight tolerance on one replicate resample."""
+    X, truth = _three_responses(4)
+    delta2 = noise_distance(X)
+    reference = np.stack([X[truth == k].mean(0) for k in range(3)])
+    Z = zscore_rows(X + np.random.default_rng(0).normal(scale=0.3, size=X.shape))
+    fast = recluster_from_centroids(
+        Z, reference, 1.4, noise_distance=delta2, tol=1e-10, max_iter=5000
+    )
+    plain = recluster_from_centroids(
+        Z, reference, 1.4, noise_distance=delta2, tol=1e-10, max_iter=5000, acceleration="none"
+    )
+    for ours, theirs in zip(fast, plain, strict=True):
+        assert_allclose(ours, theirs, atol=1e-7)
 
 
 @pytest.mark.parametrize(

@@ -183,6 +183,9 @@ def test_membership_rows_sum_to_one(finished):
         "top_membership",
         "resampled_top_share",
         "start_agreement",
+        "mean_log2",
+        "log2_range",
+        "peak_time",
     ]
     # Written at full precision (shortest round trip), so the sum holds to rounding.
     classes = [*clusters, "noise"]
@@ -192,6 +195,20 @@ def test_membership_rows_sum_to_one(finished):
     assert (table["top_class"] == table[classes].idxmax(axis=1)).all()
     assert table["start_agreement"].between(0, 1).all()
     assert table["resampled_top_share"].between(0, 1).all()
+
+
+def test_memberships_carry_each_genes_expression_level_range_and_peak(finished):
+    """The effect sizes beside the memberships are the prepared replicate means (layer
+    log_mean of prepared.h5ad, read here with anndata): their mean, max - min, and the time
+    of the maximum."""
+    table = pd.read_csv(results(finished) / "memberships.tsv", sep="\t", dtype={"gene": str})
+    prepared = anndata.read_h5ad(results(finished) / "prepared/prepared.h5ad")
+    means = pd.DataFrame(prepared.layers["log_mean"].T, index=prepared.var_names)
+    means = means.loc[table["gene"]].to_numpy()
+    times = prepared.obs["time"].to_numpy(dtype=float)
+    np.testing.assert_allclose(table["mean_log2"], means.mean(axis=1), rtol=1e-12)
+    np.testing.assert_allclose(table["log2_range"], means.max(axis=1) - means.min(axis=1))
+    np.testing.assert_array_equal(table["peak_time"], times[means.argmax(axis=1)])
 
 
 def test_tables_read_back_exactly_what_the_consensus_holds(finished):
@@ -655,6 +672,24 @@ def test_variants_share_upstream_jobs_and_keep_complete_folders(finished, tmp_pa
             base / name
         ).stat().st_ino
     assert json.loads((strict / "selection.json").read_text())["criteria"]["stable_jaccard"] == 0.9
+    assert planned_rules(directory) == {}
+
+
+def test_scan_files_can_be_removed_once_read(finished, tmp_path):
+    """keep_scan_files: false marks the scans temporary (Snakemake's temp()): the run
+    finishes with every output and without its scan files."""
+    config = {
+        **BASE_CONFIG,
+        "keep_scan_files": False,
+        "scan": {**BASE_CONFIG["scan"], "min_clusters": 2, "max_clusters": 3},
+        "selection": {"n_clusters": 3},
+    }
+    directory = write_workdir(tmp_path / "run", config)
+    shutil.copytree(finished / "demo", directory / "demo")
+    snakemake(directory)
+    out = results(directory)
+    assert not any((out / "scan").glob("*.npz"))
+    assert (out / "consensus.npz").is_file() and (out / "report.html").is_file()
     assert planned_rules(directory) == {}
 
 

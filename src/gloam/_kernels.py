@@ -8,10 +8,11 @@ of the objective, the largest membership change, and the weighted sums
 processed in blocks that stay in cache, so nothing of size (n_samples,
 n_clusters) is written except the memberships themselves, which are kept in the
 kernel's block layout (:func:`to_blocks`): one contiguous stretch per block.
-:func:`fcm_advance` runs iterations of one start.  Every function releases the
-GIL and none starts threads of its own: the caller runs whole starts on its
-threads, so no thread ever waits for another in the middle of a start, and the
-numbers of a start do not depend on how many threads there are.
+:func:`fcm_advance` runs iterations of one start, plain or accelerated by SQUAREM
+(Varadhan & Roland 2008), with or without a noise class (Davé 1991).  Every
+function releases the GIL and none starts threads of its own: the caller runs whole
+starts on its threads, so no thread ever waits for another in the middle of a start,
+and the numbers of a start do not depend on how many threads there are.
 
 The one transcendental step per element, ``r^(-p) = 2^(-p log2 r)``, is a
 branch-free scalar function of ``r`` written here, so the compiler turns the
@@ -32,6 +33,10 @@ results do not depend on the SIMD width.
 
 References
 ----------
+Davé, R. N. (1991). Characterization and detection of noise in clustering. *Pattern
+Recognition Letters* 12:657-664.
+Varadhan, R. & Roland, C. (2008). Simple and globally convergent methods for accelerating
+the convergence of any EM algorithm. *Scandinavian Journal of Statistics* 35(2):335-353.
 Muller, J.-M. (2016). *Elementary Functions: Algorithms and Implementation*,
 3rd ed. Birkhauser (range reduction, polynomial approximation).
 """
@@ -149,6 +154,9 @@ def _block_update(
     rows,
     n_clusters,
     m,
+    noise_distance,
+    noise,
+    saved_noise,
 ):
     """Memberships of one cache block from its squared distances, cluster-major.
 
@@ -160,18 +168,29 @@ def _block_update(
     change; ``saved`` keeps the old memberships of the rows that sit on a
     centroid (returned count, indices in ``flagged``), which
     :func:`_coinciding_rows` then finishes.  ``power`` is scratch.
+
+    With a finite ``noise_distance`` (``delta^2``, Davé 1991) there is one more class at
+    that squared distance from every row: ``nearest`` becomes ``min(min_j D_ij, delta^2)``,
+    its term enters ``S_i`` and ``J_i``, and ``noise`` (the block's rows) receives the noise
+    memberships (its old values enter the change; ``saved_noise`` keeps those of the flagged
+    rows).  ``inf`` gives plain fuzzy c-means and leaves ``noise`` untouched.
     """
     minus_p = -1.0 / (m - 1.0)
+    with_noise = noise_distance < np.inf
     n_flagged = 0
     for i in range(rows):
         if nearest[i] <= floor[i]:
             flagged[n_flagged] = i
             n_flagged += 1
+        elif with_noise:
+            nearest[i] = min(nearest[i], noise_distance)
     for f in range(n_flagged):
         i = flagged[f]
         nearest[i] = 1.0
         for k in range(n_clusters):
             saved[f * n_clusters + k] = target[k * rows + i]
+        if with_noise:
+            saved_noise[f] = noise[i]
     # `floor` becomes 1 / min_j D_ij.
     for i in range(rows):
         floor[i] = 1.0 / nearest[i]
@@ -184,6 +203,12 @@ def _block_update(
             value = _exp2(minus_p * _log2(dist[base + i] * floor[i]))
             power[base + i] = value
             totals[i] += value
+    if with_noise:
+        # The noise class's term (delta^2 / a_i)^(-p) in (0, 1] waits in `change_rows`.
+        for i in range(rows):
+            value = _exp2(minus_p * _log2(noise_distance * floor[i]))
+            change_rows[i] = value
+            totals[i] += value
     # J_i = min_j D_ij * S_i^(1 - m), one power per row (module docstring of fcm); `floor`
     # becomes J_i / S_i, `totals` J_i and `nearest` 1 / S_i.
     for i in range(rows):
@@ -192,6 +217,11 @@ def _block_update(
         floor[i] = share * inverse
         totals[i] = share
         nearest[i] = inverse
+    if with_noise:
+        for i in range(rows):
+            new = change_rows[i] * nearest[i]
+            change_rows[i] = abs(noise[i] - new)
+            noise[i] = new
     # u = r^(-p) / S, straight into the memberships.
     for k in range(n_clusters):
         base = k * rows
@@ -221,10 +251,21 @@ def _coinciding_rows(
     rows,
     n_clusters,
     m,
+    with_noise,
+    noise,
+    saved_noise,
 ):
-    """Rows on a centroid: membership 1 there, split evenly between coinciding centroids."""
+    """Rows on a centroid: membership 1 there, split evenly between coinciding centroids.
+
+    With the noise class such a row gets noise membership 0 (its old value, kept in
+    ``saved_noise``, enters the change).
+    """
     for f in range(n_flagged):
         i = flagged[f]
+        largest = 0.0
+        if with_noise:
+            largest = saved_noise[f]
+            noise[i] = 0.0
         hits = 0
         for k in range(n_clusters):
             if dist[k * rows + i] <= thresholds[i]:
@@ -232,7 +273,6 @@ def _coinciding_rows(
         share = 1.0 / hits
         powered = share**m
         contribution = 0.0
-        largest = 0.0
         for k in range(n_clusters):
             e = k * rows + i
             new = share if dist[e] <= thresholds[i] else 0.0
@@ -299,7 +339,15 @@ def weighted_sums(augmented_rows, memberships, m, block_rows, sums):
 
 @njit(cache=True, error_model="numpy", fastmath=_FLAGS, nogil=True)
 def membership_pass(
-    augmented_rows, centroids, memberships, m, block_rows, coincidence_relative, sums
+    augmented_rows,
+    centroids,
+    memberships,
+    m,
+    block_rows,
+    coincidence_relative,
+    sums,
+    noise_distance,
+    noise,
 ):
     """One membership update of one start, in place; returns ``(J_m, largest change)``.
 
@@ -314,12 +362,16 @@ def membership_pass(
     block_rows : rows per cache block.
     sums : float64 (n_clusters, n_features + 2), overwritten with
         ``sum_i u_ik^m [x_i, ||x_i||^2, 1]`` over the new memberships, blocks in order.
+    noise_distance : ``delta^2`` of a noise class (Davé 1991), or ``inf`` for none.
+    noise : float64 (n_samples,), the noise memberships, updated in place like
+        ``memberships`` (not read or written when ``noise_distance`` is ``inf``).
 
     Returns
     -------
     (float, float)
-        The objective ``J_m`` of the new memberships with ``centroids`` and the
-        largest absolute membership change.
+        The objective ``J_m`` of the new memberships with ``centroids`` (with the noise
+        class, ``+ sum_i u_i0^m delta^2``) and the largest absolute membership change
+        (noise memberships included).
     """
     n_samples, width = augmented_rows.shape
     n_clusters, n_features = centroids.shape
@@ -346,6 +398,8 @@ def membership_pass(
     totals = np.empty(block_rows)
     change_rows = np.empty(block_rows)
     flagged = np.empty(block_rows, dtype=np.int64)
+    saved_noise = np.empty(block_rows)
+    with_noise = noise_distance < np.inf
     partial = np.empty((n_clusters, width))
     sums[:, :] = 0.0
     objective_sum = 0.0
@@ -369,6 +423,7 @@ def membership_pass(
                 dist_flat[base + i] = value
                 nearest[i] = min(nearest[i], value)
         target = memberships[n_clusters * lo : n_clusters * lo + total]
+        block_noise = noise[lo : lo + rows] if with_noise else noise
         n_flagged = _block_update(
             dist_flat,
             nearest,
@@ -383,6 +438,9 @@ def membership_pass(
             rows,
             n_clusters,
             m,
+            noise_distance,
+            block_noise,
+            saved_noise,
         )
         _coinciding_rows(
             dist_flat,
@@ -397,6 +455,9 @@ def membership_pass(
             rows,
             n_clusters,
             m,
+            with_noise,
+            block_noise,
+            saved_noise,
         )
         for i in range(rows):
             objective_sum += totals[i]
@@ -407,12 +468,54 @@ def membership_pass(
 
 
 @njit(cache=True, error_model="numpy", fastmath=_FLAGS, nogil=True)
+def _centroids_from_sums(sums, previous, out):
+    """``out`` = ``sum_i u_ik^m x_i / sum_i u_ik^m``; a weightless cluster keeps ``previous``."""
+    n_features = out.shape[1]
+    for k in range(out.shape[0]):
+        weight = sums[k, n_features + 1]
+        for j in range(n_features):
+            out[k, j] = sums[k, j] / weight if weight > 0.0 else previous[k, j]
+
+
+@njit(cache=True, error_model="numpy", fastmath=_FLAGS, nogil=True)
+def _squarem_point(anchor, image, next_image, step_max, out):
+    """The SQUAREM extrapolation of three successive centroid sets; returns the step alpha.
+
+    ``out`` may be ``next_image`` (each entry is read before it is written).
+
+    With ``r = V1 - V0`` and ``v = V2 - 2 V1 + V0`` (``anchor``, ``image``, ``next_image``)
+    the new point is ``V0 - 2 alpha r + alpha^2 v`` with the steplength ``alpha = -|r|/|v|``
+    (scheme S3 of Varadhan & Roland 2008), kept in ``[-step_max, -1]``; ``alpha = -1`` gives
+    ``V2`` itself, the plain iterate.
+    """
+    r_norm = 0.0
+    v_norm = 0.0
+    for k in range(anchor.shape[0]):
+        for j in range(anchor.shape[1]):
+            r = image[k, j] - anchor[k, j]
+            v = next_image[k, j] - image[k, j] - r
+            r_norm += r * r
+            v_norm += v * v
+    alpha = -1.0
+    if v_norm > 0.0:
+        alpha = max(-step_max, min(-1.0, -np.sqrt(r_norm / v_norm)))
+    for k in range(anchor.shape[0]):
+        for j in range(anchor.shape[1]):
+            r = image[k, j] - anchor[k, j]
+            v = next_image[k, j] - image[k, j] - r
+            out[k, j] = anchor[k, j] - 2.0 * alpha * r + alpha * alpha * v
+    return alpha
+
+
+@njit(cache=True, error_model="numpy", fastmath=_FLAGS, nogil=True)
 def fcm_advance(
     augmented_rows,
     sums,
     centroids,
     memberships,
+    noise,
     m,
+    noise_distance,
     tol,
     objective_tol,
     first,
@@ -420,44 +523,110 @@ def fcm_advance(
     block_rows,
     coincidence_relative,
     trace,
+    accelerate,
+    anchor,
+    image,
+    saved_memberships,
+    saved_noise,
+    saved_sums,
+    state,
 ):
     """Iterations ``first`` to ``last`` (counted from 1) of one start, in place.
 
-    The state of a start is its memberships and the weighted sums made from them,
-    so a run split into several calls gives the same numbers as one call: a
-    caller may look at the objectives between calls (to prune trailing starts)
-    without changing any start.  The GIL is released, so threads can run
-    different starts at once.
+    The state of a start is its memberships and the weighted sums made from them
+    (with ``accelerate``, also ``anchor``, ``image`` and ``state``), so a run split into
+    several calls gives the same numbers as one call: a caller may look at the
+    objectives between calls (to prune trailing starts) without changing any start.
+    The GIL is released, so threads can run different starts at once.
+
+    An iteration is one membership pass (the costly part).  Plain iterations compute
+    the centroids ``F(V)`` from the memberships of ``V``.  With ``accelerate`` the
+    iterations run in cycles of three (SQUAREM, Varadhan & Roland 2008): iteration
+    ``3j + 1`` is a plain one from ``V0 = F(W)``, iteration ``3j + 2`` a plain one from
+    ``V1 = F(V0)``, and iteration ``3j + 3`` the pass at the extrapolation ``V'`` of
+    ``V0, V1, V2 = F(V1)`` (:func:`_squarem_point`).  ``V'`` is kept only when its
+    objective is at most that of ``V1`` (a monotonicity safeguard; the objective of a
+    centroid set is that of its optimal memberships, Hathaway & Bezdek 1995); otherwise
+    the start goes back to the memberships of ``V1``, so the next cycle begins at the
+    plain iterate ``V2``.  The steplength bound ``state[0]`` grows four-fold when it
+    was reached by an accepted step and shrinks four-fold (not below 1) after a
+    rejected one.  The stopping tests look only at plain iterations (the first two
+    of a cycle), so ``tol`` keeps its meaning: a plain step that changes no membership
+    by ``tol`` or more.
 
     Parameters
     ----------
     augmented_rows : float64 (n_samples, n_features + 2), see :func:`membership_pass`.
     sums : float64 (n_clusters, n_features + 2), ``sum_i u_ik^m [x_i, ||x_i||^2, 1]``
         of the current memberships (:func:`weighted_sums` for the first call).
-    centroids : float64 (n_clusters, n_features), overwritten; on exit the centroids
-        the final memberships were computed from.
+    centroids : float64 (n_clusters, n_features), the centroids the current memberships
+        were computed from (any finite values before the first iteration); on exit
+        those of the final memberships.
     memberships : float64 (n_clusters * n_samples,), layout of :func:`to_blocks`.
-    m, tol : fuzzifier and membership-change threshold.
+    noise : float64 (n_samples,), noise memberships (see :func:`membership_pass`).
+    m, noise_distance, tol : fuzzifier, ``delta^2`` (``inf``: no noise class) and
+        membership-change threshold.
     objective_tol : also stop when ``J_{t-1} - J_t <= objective_tol * J_t`` (0: off).
-    first, last : the iterations to run; ``trace`` (max_iter,) receives ``J_m`` of
-        iteration ``t`` at ``t - 1`` (``trace[first - 2]`` must hold the previous one).
+    first, last : the iterations to run; ``trace`` (max_iter,) receives the objective
+        of the start's state after iteration ``t`` at ``t - 1`` (``trace[first - 2]``
+        must hold the previous one).  It never rises.
     block_rows, coincidence_relative : see :func:`membership_pass`.
+    accelerate : run SQUAREM cycles.  The remaining arrays are its state and scratch
+        (untouched without it): ``anchor``, ``image`` (n_clusters, n_features) hold
+        ``V0`` and ``V1``; ``saved_memberships``, ``saved_noise`` and ``saved_sums`` the
+        memberships of ``V1`` during the extrapolated pass; ``state`` (2,) the steplength
+        bound (start it at 1 or more) and the objective of ``V1``.
 
     Returns
     -------
     (int, bool)
         The last iteration done and whether a stopping test was met there.
     """
-    n_features = centroids.shape[1]
     for iteration in range(first, last + 1):
-        # Centroids from sum_i u_ik^m [x_i, ||x_i||^2, 1] (the last column is the weight).
-        for k in range(centroids.shape[0]):
-            for j in range(n_features):
-                centroids[k, j] = sums[k, j] / sums[k, n_features + 1]
+        phase = (iteration - 1) % 3 if accelerate else 0
+        if phase == 2:
+            # V2 = F(V1) from the sums of V1's memberships, then the extrapolation V'
+            # (both in `centroids`, which holds V1 = `image` on entry).
+            _centroids_from_sums(sums, image, centroids)
+            alpha = _squarem_point(anchor, image, centroids, state[0], centroids)
+            saved_memberships[:] = memberships
+            saved_sums[:, :] = sums
+            if noise_distance < np.inf:
+                saved_noise[:] = noise
+        else:
+            _centroids_from_sums(sums, centroids, centroids)
+            if phase == 0 and accelerate:
+                anchor[:, :] = centroids
+            elif accelerate:
+                image[:, :] = centroids
         objective, change = membership_pass(
-            augmented_rows, centroids, memberships, m, block_rows, coincidence_relative, sums
+            augmented_rows,
+            centroids,
+            memberships,
+            m,
+            block_rows,
+            coincidence_relative,
+            sums,
+            noise_distance,
+            noise,
         )
+        if phase == 1:
+            state[1] = objective
+        if phase == 2:
+            if objective <= state[1]:
+                if alpha <= -state[0]:
+                    state[0] *= 4.0
+            else:
+                memberships[:] = saved_memberships
+                sums[:, :] = saved_sums
+                if noise_distance < np.inf:
+                    noise[:] = saved_noise
+                centroids[:, :] = image
+                objective = state[1]
+                state[0] = max(1.0, state[0] / 4.0)
         trace[iteration - 1] = objective
+        if phase == 2:
+            continue
         if change < tol:
             return iteration, True
         if objective_tol > 0.0 and iteration > 1:

@@ -21,10 +21,11 @@ computation, no second copy on disk, and every run folder stays complete.
 
 from __future__ import annotations
 
+import importlib
 import os
 import re
 import shutil
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -40,8 +41,10 @@ __all__ = [
     "run_file",
     "run_targets",
     "figure_files",
+    "figure_paths",
     "file_meaning",
     "matches",
+    "resolve",
     "link_shared",
 ]
 
@@ -100,6 +103,9 @@ class Figure:
         Dotted name of the stage function that draws it.
     caption : str
         One-line caption (the report page; the README shows the same figure).
+    section : str
+        Section of Snakemake's report that shows the PNG (caption file
+        ``workflow/report/<name>.rst``).
     """
 
     name: str
@@ -107,6 +113,7 @@ class Figure:
     folder: str
     draw: str
     caption: str
+    section: str
 
 
 #: File formats of every figure.
@@ -129,6 +136,7 @@ FIGURES: dict[str, Figure] = {
             "gloam.stages.figure_profiles",
             "Each cluster's centroid over time with the central 50 % and 90 % of its core "
             "genes, the noise class apart; z-scores above, mean log2 expression below.",
+            "4 clusters",
         ),
         Figure(
             "overview",
@@ -137,6 +145,7 @@ FIGURES: dict[str, Figure] = {
             "gloam.stages.figure_overview",
             "Per cluster: core size, robustness (mean resampling Jaccard against the stable "
             "level), peak time and similarity to the nearest other cluster.",
+            "4 clusters",
         ),
         Figure(
             "validity",
@@ -145,6 +154,7 @@ FIGURES: dict[str, Figure] = {
             "gloam.stages.figure_validity",
             "For every scanned c, the criteria that decide c with their thresholds; the c used "
             "is marked.",
+            "3 number of clusters",
         ),
         Figure(
             "fuzzifier",
@@ -153,6 +163,7 @@ FIGURES: dict[str, Figure] = {
             "gloam.stages.figure_fuzzifier",
             "How crisp clusterings of shuffled data are as m grows, with the m used and the "
             "formula's m marked.",
+            "2 fuzzifier",
         ),
         Figure(
             "transitions",
@@ -162,6 +173,7 @@ FIGURES: dict[str, Figure] = {
             "Conditions compared: where genes move between the shared responses from the "
             "first condition to the second; the solid part of each square is the genes called "
             "changed (interaction FDR at the level and a different response).",
+            "6 conditions compared",
         ),
     )
 }
@@ -353,6 +365,7 @@ RUN_FILES: tuple[RunFile, ...] = (
 RESULTS_FILES: dict[str, tuple[str, str]] = {
     "summary.tsv": ("summary", "one row per run: m, c, flags, core genes"),
     "sensitivity.tsv": ("summary", "how much each dataset's clusters change across variants"),
+    "matches.tsv": ("summary", "clusters of different datasets matched, per pair of runs"),
     "index.html": ("report_index", "report page over every run"),
 }
 
@@ -381,6 +394,16 @@ def figure_files(writer: str) -> dict[str, str]:
     }
 
 
+def figure_paths(writer: str, outputs: object) -> dict[str, tuple[str, str, str]]:
+    """Figure name -> (PNG, PDF, SVG) path, taken from a job's named outputs (attributes
+    ``<figure>_<format>``, as :func:`figure_files` names them) for the figures of ``writer``."""
+    names = dict.fromkeys(key.rsplit("_", 1)[0] for key in figure_files(writer))
+    return {
+        name: tuple(str(getattr(outputs, f"{name}_{kind}")) for kind in FIGURE_FORMATS)
+        for name in names
+    }
+
+
 def matches(relative: str) -> RunFile | None:
     """The most specific registered file whose path matches ``relative`` (a path relative to
     the run folder, ``/``-separated), or None for a file gloam does not write."""
@@ -388,6 +411,12 @@ def matches(relative: str) -> RunFile | None:
     # A file inside a registered folder matches the folder too; the file's own entry wins.
     found.sort(key=lambda entry: (entry.format == "folder", -len(entry.path)))
     return found[0] if found else None
+
+
+def resolve(dotted: str) -> Callable[..., object]:
+    """The function a registry entry names (``"gloam.stages.figure_profiles"``)."""
+    module, _, name = dotted.rpartition(".")
+    return getattr(importlib.import_module(module), name)
 
 
 def file_meaning(relative: str) -> str:

@@ -9,6 +9,8 @@ status 2, and Ctrl-C one line and exit status 130, never a traceback.
 from __future__ import annotations
 
 import argparse
+import contextlib
+import itertools
 import math
 import sys
 import warnings
@@ -18,7 +20,14 @@ from pathlib import Path
 from gloam import __version__
 from gloam.errors import GloamError, report_and_exit, show_warning
 
-__all__ = ["main", "build_parser", "PREPARE_OUTPUTS", "RUN_LOCK", "INTERRUPTED_EXIT_CODE"]
+__all__ = [
+    "main",
+    "build_parser",
+    "PREPARE_OUTPUTS",
+    "RUN_LOCK",
+    "RESULTS_LOCK",
+    "INTERRUPTED_EXIT_CODE",
+]
 
 #: Exit status after Ctrl-C (128 + SIGINT, the shell's convention).
 INTERRUPTED_EXIT_CODE = 130
@@ -333,7 +342,8 @@ def _check_cluster_run_options(args: argparse.Namespace) -> None:
 
 
 def _run_cluster(args: argparse.Namespace) -> int:
-    from gloam import stages
+    from gloam import logs, stages
+    from gloam.artifacts import FIGURES
     from gloam.prepare import read_prepared, read_prepared_replicates
 
     # Every option is checked before anything is written, so a mistake leaves no files and
@@ -352,75 +362,82 @@ def _run_cluster(args: argparse.Namespace) -> int:
     stages.check_genes_for_fuzzifier(n_genes)
     stages.check_clusters_fit_genes(max(numbers), n_genes)
     out = args.out_dir
-    fuzzifier = {"m": m, "n_clusters_check": min(_CLUSTERS_FOR_M_CHECK, n_genes - 1)}
-    chosen_m = stages.write_fuzzifier_choice(
-        zscores, fuzzifier, args.seed, out / "fuzzifier.json", out / "fuzzifier_curve.tsv"
-    )
-    stages.write_scan_input(
-        zscores,
-        chosen_m,
-        out / "scan_input.npz",
-        columns=columns,
-        replicates=replicates,
-        samples=samples,
-    )
-    scan_settings = {
-        "n_starts": args.n_starts,
-        "tol": args.tol,
-        "max_iter": args.max_iter,
-        "init": "kmeans++",
-        "precision": "fast",
-        "n_resamples": args.n_resamples,
-    }
-    scans = [out / "scan" / f"c{c}.npz" for c in numbers]
-    for index, (c, path) in enumerate(zip(numbers, scans, strict=True), start=1):
-        print(f"gloam: clustering c = {c} ({index} of {len(numbers)})", file=sys.stderr)
-        stages.run_scan(out / "scan_input.npz", c, scan_settings, args.seed, path)
-    stages.run_select(
-        out / "scan_input.npz",
-        out / "fuzzifier.json",
-        scans,
-        {"n_clusters": fixed},
-        args.seed,
-        out_validity=out / "validity.tsv",
-        out_selection=out / "selection.json",
-        out_consensus=out / "consensus.npz",
-    )
-    figures = out / "figures"
+    # Progress (one line per c as it finishes) and warnings on the terminal.
+    with logs.console_logging(verbose=False):
+        fuzzifier = {"m": m, "n_clusters_check": min(_CLUSTERS_FOR_M_CHECK, n_genes - 1)}
+        chosen_m = stages.write_fuzzifier_choice(
+            zscores, fuzzifier, args.seed, out / "fuzzifier.json", out / "fuzzifier_curve.tsv"
+        )
+        stages.write_scan_input(
+            zscores,
+            chosen_m,
+            out / "scan_input.npz",
+            columns=columns,
+            replicates=replicates,
+            samples=samples,
+        )
+        scan_settings = {
+            "n_starts": args.n_starts,
+            "tol": args.tol,
+            "max_iter": args.max_iter,
+            "init": "kmeans++",
+            "precision": "fast",
+            "n_resamples": args.n_resamples,
+        }
+        scans = [out / "scan" / f"c{c}.npz" for c in numbers]
+        for index, (c, path) in enumerate(zip(numbers, scans, strict=True), start=1):
+            with logs.progress(index, len(numbers)):
+                stages.run_scan(out / "scan_input.npz", c, scan_settings, args.seed, path)
+        stages.run_select(
+            out / "scan_input.npz",
+            out / "fuzzifier.json",
+            scans,
+            {"n_clusters": fixed},
+            args.seed,
+            out_validity=out / "validity.tsv",
+            out_selection=out / "selection.json",
+            out_consensus=out / "consensus.npz",
+        )
+        figures = out / "figures"
 
-    def figure(name: str) -> tuple[Path, Path, Path]:
-        return tuple(figures / f"{name}.{suffix}" for suffix in ("png", "pdf", "svg"))
+        def figures_drawn_by(writer: str) -> list[str]:
+            return [
+                name
+                for name, figure in FIGURES.items()
+                if figure.folder == "figures" and figure.writer == writer
+            ]
 
-    stages.export_results(
-        args.prepared,
-        out / "consensus.npz",
-        out / "fuzzifier.json",
-        out / "fuzzifier_curve.tsv",
-        out / "selection.json",
-        out / "validity.tsv",
-        {
-            "seed": args.seed,
-            "time_unit": args.time_unit,
-            "fuzzifier": {"m": m},
-            "scan": scan_settings,
-        },
-        memberships=out / "memberships.tsv",
-        centroids=out / "centroids.tsv",
-        clusters=out / "clusters.tsv",
-        robustness=out / "robustness.tsv",
-        h5ad=out / "gloam.h5ad",
-        validity_figure=figure("validity"),
-        fuzzifier_figure=figure("fuzzifier"),
-        overview_figure=figure("overview"),
-    )
-    stages.export_core_genes(
-        args.prepared,
-        out / "consensus.npz",
-        thresholds,
-        args.time_unit,
-        genesets=out / "genesets",
-        profiles_figure=figure("profiles"),
-    )
+        def figure(name: str) -> tuple[Path, Path, Path]:
+            return tuple(figures / f"{name}.{suffix}" for suffix in ("png", "pdf", "svg"))
+
+        stages.export_results(
+            args.prepared,
+            out / "consensus.npz",
+            out / "fuzzifier.json",
+            out / "fuzzifier_curve.tsv",
+            out / "selection.json",
+            out / "validity.tsv",
+            {
+                "seed": args.seed,
+                "time_unit": args.time_unit,
+                "fuzzifier": {"m": m},
+                "scan": scan_settings,
+            },
+            memberships=out / "memberships.tsv",
+            centroids=out / "centroids.tsv",
+            clusters=out / "clusters.tsv",
+            robustness=out / "robustness.tsv",
+            h5ad=out / "gloam.h5ad",
+            figures={name: figure(name) for name in figures_drawn_by("export")},
+        )
+        stages.export_core_genes(
+            args.prepared,
+            out / "consensus.npz",
+            thresholds,
+            args.time_unit,
+            genesets=out / "genesets",
+            figures={name: figure(name) for name in figures_drawn_by("core_genes")},
+        )
     print(f"gloam: clustered -> {out}")
     return 0
 
@@ -456,6 +473,10 @@ def _add_run(subparsers: argparse._SubParsersAction) -> None:
 #: Lock file of an active ``gloam run``, inside Snakemake's folder of the working directory.
 RUN_LOCK = Path(".snakemake") / "gloam-run.lock"
 
+#: Lock file of an active ``gloam run`` inside the results folder it writes into (hidden, so
+#: that no listing of results shows it; removed when the run ends).
+RESULTS_LOCK = ".gloam-run.lock"
+
 #: Snakemake options that run no job and touch no lock, so they may run beside an active run.
 _READ_ONLY_OPTIONS = frozenset(
     {
@@ -489,39 +510,110 @@ def _process_alive(pid: int) -> bool:
     return True
 
 
-def _acquire_run_lock(lock: Path) -> None:
+def _acquire_run_lock(lock: Path, *, scope: str = "in this folder", fix: str = "") -> None:
     """Create ``lock`` for this process; refuse if a live ``gloam run`` holds it.
 
     A lock left by a run that was killed (its process is gone) is taken over. A lock from
-    another machine cannot be checked, so it is respected.
+    another machine cannot be checked, so it is respected. The lock holds ``<pid> <host>`` on
+    its first line and the holder's working folder on the second.
+
+    Parameters
+    ----------
+    lock : Path
+        The lock file.
+    scope : str
+        Where the other run is active, for the message (``"in this folder"``).
+    fix : str
+        A further way out for the message (e.g. ``"give this run its own results_dir"``).
     """
     import os
     import socket
 
     host = socket.gethostname()
-    lock.parent.mkdir(parents=True, exist_ok=True)
-    for _ in range(2):
-        try:
-            descriptor = os.open(lock, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o644)
-        except FileExistsError:
+    try:
+        lock.parent.mkdir(parents=True, exist_ok=True)
+        for _ in range(2):
             try:
-                pid_text, _, lock_host = lock.read_text(encoding="utf-8").strip().partition(" ")
-                pid = int(pid_text)
-            except (OSError, ValueError):
-                pid, lock_host = -1, host
-            if pid > 0 and (lock_host != host or _process_alive(pid)):
-                where = "" if lock_host == host else f" on {lock_host}"
-                raise GloamError(
-                    f"another gloam run (process {pid}{where}) is active in this folder; wait "
-                    "for it to end or stop it (Ctrl-C) before starting, unlocking or "
-                    f"rerunning; if no run is active, delete {str(lock)!r}"
-                ) from None
-            lock.unlink(missing_ok=True)  # left by a run that was killed
-            continue
-        with os.fdopen(descriptor, "w", encoding="utf-8") as handle:
-            handle.write(f"{os.getpid()} {host}\n")
-        return
+                descriptor = os.open(lock, os.O_WRONLY | os.O_CREAT | os.O_EXCL, 0o644)
+            except FileExistsError:
+                _refuse_if_held(lock, host, scope, fix)
+                lock.unlink(missing_ok=True)  # left by a run that was killed
+                continue
+            with os.fdopen(descriptor, "w", encoding="utf-8") as handle:
+                handle.write(f"{os.getpid()} {host}\n{Path.cwd()}\n")
+            return
+    except OSError as error:
+        from gloam.io import no_space_error
+
+        raise no_space_error(error, lock) or GloamError(
+            f"cannot create the run lock {str(lock)!r} ({error.strerror or error}); make its "
+            "folder writable for your user, or run from another folder"
+        ) from error
     raise GloamError(f"cannot take the run lock {str(lock)!r}; delete it and start again")
+
+
+def _refuse_if_held(lock: Path, host: str, scope: str, fix: str) -> None:
+    """Refuse with one line when ``lock`` names a live process (or one on another machine)."""
+    try:
+        first, _, folder = lock.read_text(encoding="utf-8").partition("\n")
+        pid_text, _, lock_host = first.strip().partition(" ")
+        pid = int(pid_text)
+    except (OSError, ValueError):
+        return
+    if pid > 0 and (lock_host != host or _process_alive(pid)):
+        where = "" if lock_host == host else f" on {lock_host}"
+        started = f", started in {folder.strip()!r}" if folder.strip() else ""
+        raise GloamError(
+            f"another gloam run (process {pid}{where}{started}) is active {scope}; wait for it "
+            f"to end or stop it (Ctrl-C) before starting, unlocking or rerunning{fix}; if no "
+            f"run is active, delete {str(lock)!r}"
+        )
+
+
+def _hold_run_lock(locks: contextlib.ExitStack, lock: Path, scope: str, fix: str) -> None:
+    """Take ``lock`` (see :func:`_acquire_run_lock`) until ``locks`` closes."""
+    _acquire_run_lock(lock, scope=scope, fix=fix)
+    locks.callback(lock.unlink, missing_ok=True)
+
+
+def _option_values(arguments: Sequence[str], *names: str) -> list[str] | None:
+    """The values of the last of ``names`` in ``arguments``, an option taking one or more
+    values (``--name v1 v2`` up to the next option, or ``--name=v``); None if absent."""
+    found = None
+    for index, argument in enumerate(arguments):
+        if argument in names:
+            found = list(itertools.takewhile(lambda value: not value.startswith("-"),
+                                             arguments[index + 1 :]))  # fmt: skip
+        elif any(argument.startswith(f"{name}=") for name in names if name.startswith("--")):
+            found = [argument.split("=", 1)[1]]
+    return found
+
+
+def _results_folder(
+    configfile: Path | None, arguments: Sequence[str], directory: Path
+) -> Path | None:
+    """The results folder the workflow will write into, as Snakemake will see the config.
+
+    The config is the config file (or the last ``--configfile`` among ``arguments``, which
+    Snakemake uses instead) with a ``--config results_dir=...`` on top; a relative folder is
+    relative to ``directory``. None when the config has a mistake: the workflow's planning
+    then refuses it with its own message before any job starts, so no result is written.
+    """
+    from gloam import planning
+
+    try:
+        files = _option_values(arguments, "--configfile", "--configfiles")
+        config: dict[str, object] = {}
+        for file in files if files is not None else [configfile] if configfile else []:
+            config = planning.overlay(config, planning.read_config_file(file))
+        for entry in _option_values(arguments, "--config", "-C") or []:
+            key, equals, value = entry.partition("=")
+            if key == "results_dir" and equals:
+                config["results_dir"] = value
+        value = planning.validated_config(config)["results_dir"]
+        return (directory / planning.own_folder("results_dir", value, cwd=directory)).resolve()
+    except GloamError:
+        return None
 
 
 def _run_snakemake(command: list[str]) -> int:
@@ -597,14 +689,33 @@ def _run_workflow(args: argparse.Namespace) -> int:
     if configfile is not None and planning.read_config_file(configfile):
         command += ["--configfile", str(configfile.resolve())]
     command += extra
-    if _READ_ONLY_OPTIONS.isdisjoint(extra):
-        lock = directory / RUN_LOCK
-        _acquire_run_lock(lock)
-        try:
-            return _run_snakemake(command)
-        finally:
-            lock.unlink(missing_ok=True)
-    return _run_snakemake(command)
+    if not _READ_ONLY_OPTIONS.isdisjoint(extra):
+        return _run_snakemake(command)
+    results = _results_folder(configfile, extra, directory)
+    with contextlib.ExitStack() as locks:
+        # One lock in the working folder (Snakemake's own state lives there), one in the
+        # results folder: two runs from different folders must not share results either.
+        _hold_run_lock(locks, directory / RUN_LOCK, "in this folder", "")
+        if results is not None:
+            _hold_run_lock(
+                locks,
+                results / RESULTS_LOCK,
+                f"with the results folder {str(results)!r}",
+                ", or give this run its own results_dir",
+            )
+        status = _run_snakemake(command)
+    if status == 0 and results is not None:
+        _print_run_lines(results / "summary.tsv")
+    return status
+
+
+def _print_run_lines(summary: Path) -> None:
+    """One line per run of the finished workflow: its m, c and quality flags."""
+    from gloam.stages import run_lines
+
+    if summary.is_file():
+        for line in run_lines(summary):
+            print(f"gloam: {line}", file=sys.stderr)
 
 
 #: One declaring function per subcommand; add a new subcommand by appending here.
@@ -633,8 +744,8 @@ def build_parser() -> argparse.ArgumentParser:
 def main(argv: Sequence[str] | None = None) -> int:
     """Entry point of the ``gloam`` console script; returns the exit status.
 
-    User errors (:class:`~gloam.errors.GloamError`) are printed as one line and end the
-    process with status 2; Ctrl-C ends it with one line and status 130 (128 + SIGINT).
+    User errors (:class:`~gloam.errors.GloamError`) and a full disk are printed as one line
+    and end the process with status 2; Ctrl-C ends it with one line and status 130 (128 + SIGINT).
     """
     args = build_parser().parse_args(argv)
     with warnings.catch_warnings():
@@ -643,6 +754,14 @@ def main(argv: Sequence[str] | None = None) -> int:
             return int(args.run(args))
         except GloamError as error:
             report_and_exit(error)
+        except Exception as error:
+            from gloam.io import no_space_error
+
+            # A full disk anywhere (a log, a cache, a writer outside gloam.io): one line too.
+            problem = no_space_error(error)
+            if problem is None:
+                raise
+            report_and_exit(problem)
         except KeyboardInterrupt:
             print("gloam: interrupted (Ctrl-C)", file=sys.stderr)
             raise SystemExit(INTERRUPTED_EXIT_CODE) from None

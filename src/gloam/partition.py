@@ -52,11 +52,6 @@ CORE_LEVEL_FOR_CRITERIA = 0.5
 #: Null data sets of each nearest-pair separation test (as the workflow's structure test).
 SEPARATION_N_NULL = 30
 
-#: Iterations and tolerance of the reclustering of each resample (warm-started: it starts next
-#: to the answer, so few iterations are needed; memberships to 1e-3 suffice for intervals).
-_RESAMPLE_TOL = 1e-3
-_RESAMPLE_MAX_ITER = 150
-
 
 @dataclass(frozen=True)
 class PartitionAtC:
@@ -196,6 +191,7 @@ def solve_partition(
     replicates: np.ndarray | None = None,
     sample_column: np.ndarray | None = None,
     separation_n_null: int = SEPARATION_N_NULL,
+    acceleration: str = "squarem",
 ) -> PartitionAtC:
     """Cluster ``X`` into ``n_clusters`` and gather the evidence for judging that c.
 
@@ -227,6 +223,10 @@ def solve_partition(
     separation_n_null : int
         Null data sets of the test of each cluster against its nearest neighbour
         (:func:`gloam.structure.nearest_pair_separation`); 0 skips it.
+    acceleration : {"squarem", "none"}
+        How the starts, the noise clustering and the resamples iterate
+        (:func:`gloam.fcm.fuzzy_cmeans`): SQUAREM extrapolation of the centroids (Varadhan &
+        Roland 2008) with a monotone objective, or plain fuzzy c-means steps.
 
     Returns
     -------
@@ -256,6 +256,7 @@ def solve_partition(
         "init": init,
         "precision": precision,
         "n_threads": n_threads,
+        "acceleration": acceleration,
     }
     result, aligned, at_optimum = _run_until_optimum(
         X,
@@ -279,7 +280,7 @@ def solve_partition(
         m=float(m),
     )
     centroids, memberships, noise, delta = _final_partition(
-        X, optimum.centroids, optimum.memberships, m, noise_class
+        X, optimum.centroids, optimum.memberships, m, noise_class, acceleration
     )
     robustness = None
     scheme = "none"
@@ -295,6 +296,7 @@ def solve_partition(
             replicates=replicates,
             sample_column=sample_column,
             rng=rng,
+            acceleration=acceleration,
         )
     max_pair_p_value = float("nan")
     if separation_n_null > 0:
@@ -378,39 +380,26 @@ def _subset(result, mask: np.ndarray):
 
 
 def _final_partition(
-    X: np.ndarray, centroids: np.ndarray, memberships: np.ndarray, m: float, noise_class: bool
+    X: np.ndarray,
+    centroids: np.ndarray,
+    memberships: np.ndarray,
+    m: float,
+    noise_class: bool,
+    acceleration: str = "squarem",
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, float]:
     """Noise clustering from the consensus centroids, or the consensus itself without it."""
     if not noise_class:
         return centroids, memberships, np.zeros(X.shape[0]), float("inf")
-    from gloam.noise import noise_cmeans, noise_distance
+    from gloam.fcm import warm_start_cmeans
+    from gloam.noise import noise_distance
 
     delta = noise_distance(X, rule="flat_profile")
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", ConvergenceWarning)
-        partition = noise_cmeans(X, centroids, m, noise_distance=delta)
-    return partition.centroids, partition.memberships, partition.noise, float(delta)
-
-
-def _recluster(
-    X: np.ndarray, reference_centroids: np.ndarray, m: float, delta: float
-) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Cluster ``X`` again from the reference centroids; return it in the reference's order."""
-    from gloam.noise import noise_cmeans
-    from gloam.robustness import align_to_reference
-
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", ConvergenceWarning)
-        partition = noise_cmeans(
-            X,
-            reference_centroids,
-            m,
-            noise_distance=delta,
-            tol=_RESAMPLE_TOL,
-            max_iter=_RESAMPLE_MAX_ITER,
+        partition = warm_start_cmeans(
+            X, centroids, m, noise_distance=delta, acceleration=acceleration
         )
-    permutation = align_to_reference(reference_centroids, partition.centroids)
-    return partition.memberships[:, permutation], partition.noise, partition.centroids[permutation]
+    return partition.centroids, partition.memberships, partition.noise, float(delta)
 
 
 def _robustness(
@@ -425,9 +414,11 @@ def _robustness(
     replicates: np.ndarray | None,
     sample_column: np.ndarray | None,
     rng: np.random.Generator,
+    acceleration: str = "squarem",
 ):
     from gloam.robustness import (
         bootstrap_genes,
+        recluster_from_centroids,
         resample_replicates,
         resampling_robustness,
         zscore_rows,
@@ -443,7 +434,9 @@ def _robustness(
 
         def recluster(generator: np.random.Generator):
             profiles = resample_replicates(replicates, group, rng=generator)
-            resampled, resampled_noise, _ = _recluster(zscore_rows(profiles), centroids, m, delta)
+            resampled, resampled_noise, _ = recluster_from_centroids(
+                zscore_rows(profiles), centroids, m, noise_distance=delta, acceleration=acceleration
+            )
             return None, resampled, resampled_noise
 
         scheme = "replicates"
@@ -451,7 +444,9 @@ def _robustness(
 
         def recluster(generator: np.random.Generator):
             index = bootstrap_genes(X.shape[0], rng=generator)
-            resampled, resampled_noise, _ = _recluster(X[index], centroids, m, delta)
+            resampled, resampled_noise, _ = recluster_from_centroids(
+                X[index], centroids, m, noise_distance=delta, acceleration=acceleration
+            )
             return index, resampled, resampled_noise
 
         scheme = "genes"

@@ -77,6 +77,7 @@ START_SETTINGS = (
     "max_starts",
     "noise_class",
     "n_resamples",
+    "acceleration",
 )
 
 #: Figures of a run written under ``figures/`` (each as PNG, PDF and SVG); the registry of
@@ -568,6 +569,10 @@ class Plan:
         """How much each dataset's clusters change across its settings variants."""
         return f"{self.results_dir}/sensitivity.tsv"
 
+    def matches_path(self) -> str:
+        """Clusters of different datasets matched (runs under the same settings)."""
+        return f"{self.results_dir}/matches.tsv"
+
     def index_path(self) -> str:
         """The report page over every run."""
         return f"{self.results_dir}/index.html"
@@ -598,7 +603,12 @@ class Plan:
 
     def final_outputs(self) -> list[str]:
         """The summary table, the index page and every output of every run."""
-        files = [self.summary_path(), self.index_path(), self.sensitivity_path()]
+        files = [
+            self.summary_path(),
+            self.index_path(),
+            self.sensitivity_path(),
+            self.matches_path(),
+        ]
         for run in self.runs:
             files += self.run_outputs(run)
         return files

@@ -46,7 +46,7 @@ import numpy as np
 import pandas as pd
 
 from gloam.errors import GloamError, GloamWarning
-from gloam.io import atomic_output, write_table
+from gloam.io import atomic_output, read_h5ad_checked, write_h5ad, write_table
 from gloam.sanity import cell_examples as _examples
 from gloam.sanity import check_libraries, check_value_scale
 
@@ -109,6 +109,11 @@ VAR_PREFIX = "prepare_"
 RAW_VARM_KEY = "prepare_raw"
 REPLICATES_VARM_KEY = "prepare_replicates"
 LOG_MEAN_LAYER = "log_mean"
+#: How to make a damaged prepared matrix again (the end of the one-line error).
+PREPARED_REMAKE = (
+    "give the prepared.h5ad that gloam prepare (or the workflow's prepare step) wrote, or "
+    "delete it and prepare again"
+)
 
 # A profile whose SD is below this share of its magnitude is constant up to rounding.
 _FLAT_RELATIVE_TOLERANCE = 1e-10
@@ -1339,7 +1344,7 @@ def write_prepared(
             stack.enter_context(atomic_output(path))
             for path in (h5ad_path, tsv_path, report_path, summary_path)
         ]
-        data.write_h5ad(temporary[0])
+        write_h5ad(data, temporary[0])
         write_table(prepared.zscores.reset_index(), temporary[1])
         write_table(prepared.gene_report, temporary[2])
         write_table(prepared.summary, temporary[3])
@@ -1364,20 +1369,13 @@ def read_prepared(h5ad_path: str | os.PathLike[str]) -> tuple[pd.DataFrame, pd.D
     GloamError
         The file is missing, unreadable or was not written by :func:`write_prepared`.
     """
-    import anndata
 
     path = Path(h5ad_path)
     if not path.is_file():
         raise GloamError(
             f"prepared matrix {str(path)!r} does not exist; run the preparation step first"
         )
-    try:
-        data = anndata.read_h5ad(path)
-    except Exception as error:  # h5py/anndata raise many unrelated types for a bad file
-        raise GloamError(
-            f"prepared matrix {str(path)!r} cannot be read as .h5ad ({error}); give the "
-            "prepared.h5ad that gloam prepare (or the workflow's prepare step) wrote"
-        ) from error
+    data = read_h5ad_checked(path, "prepared matrix", remake=PREPARED_REMAKE)
     needed = {"time", "condition"}
     if UNS_KEY not in data.uns or not needed <= set(data.obs.columns):
         raise GloamError(
@@ -1409,9 +1407,8 @@ def read_prepared_replicates(
     samples : DataFrame or None
         ``uns["prepare"]["samples"]`` (``sample``, ``time``, ``condition``, ``column``, ...).
     """
-    import anndata
 
-    data = anndata.read_h5ad(h5ad_path)
+    data = read_h5ad_checked(h5ad_path, "prepared matrix", remake=PREPARED_REMAKE)
     if REPLICATES_VARM_KEY not in data.varm or UNS_KEY not in data.uns:
         return None, None
     samples = pd.DataFrame(data.uns[UNS_KEY]["samples"])

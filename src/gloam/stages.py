@@ -22,6 +22,12 @@ Files between stages
     The decision on c, the per-c table behind it and the chosen partition in peak-time order
     (:func:`consensus_arrays`).
 
+Logs: every stage logs, through the ``gloam.stages`` logger, what it read (file, genes x
+samples), what it kept and why the rest was dropped, what it chose (m, c, the criteria of
+each c, the quality flags) and how long the work took; warnings name the c they are about.
+Nothing is configured here: :func:`rule_environment` sends a rule's records to its log file
+and :func:`gloam.logs.console_logging` sends progress to the terminal.
+
 Seeds: the scan for c draws from ``numpy.random.default_rng([seed, c])`` and the fuzzifier
 check from ``default_rng([seed, 0])``, so each job is reproducible on its own, whatever
 order a scheduler runs them in.
@@ -32,21 +38,30 @@ from __future__ import annotations
 import contextlib
 import dataclasses
 import json
+import logging
 import os
 import platform
 import sys
-import traceback
+import time
 import warnings
 from collections.abc import Iterator, Mapping, Sequence
 from importlib import metadata
 from pathlib import Path
-from typing import Any, TextIO
+from typing import Any
 
 import numpy as np
 import pandas as pd
 
-from gloam.errors import GloamError, GloamWarning, show_warning
-from gloam.io import atomic_directory, atomic_output, read_npz_checked, write_table
+from gloam.errors import GloamError, GloamWarning, report_and_exit
+from gloam.io import (
+    atomic_directory,
+    atomic_output,
+    read_npz_checked,
+    write_h5ad,
+    write_table,
+)
+from gloam.logs import PROGRESS as _PROGRESS
+from gloam.logs import about, position
 from gloam.planning import START_SETTINGS
 
 __all__ = [
@@ -83,6 +98,8 @@ __all__ = [
     "COMPARISON_FILES_WHEN_COMPARED",
     "TRANSITION_COLUMNS",
     "summarise_runs",
+    "run_lines",
+    "RUN_LINE_COLUMNS",
     "summarise_sensitivity",
     "SENSITIVITY_COLUMNS",
     "RESULT_KEY",
@@ -96,36 +113,55 @@ MEMBERSHIPS_VARM_KEY = "gloam_memberships"
 
 PathLike = str | os.PathLike[str]
 
+_log = logging.getLogger(__name__)
+
 
 # ------------------------------------------------------------------ running one stage
 
 
-class _Tee:
-    """Write to the rule's log and to the original stream (so Snakemake shows errors too)."""
+def _size(path: PathLike) -> str:
+    """The size of a file, or the number of files in a folder, for the log."""
+    target = Path(path)
+    if target.is_dir():
+        return f"{sum(1 for item in target.rglob('*') if item.is_file())} files"
+    if not target.is_file():
+        return "missing"
+    size = target.stat().st_size
+    return f"{size} B" if size < 1024 else f"{size / 1024:.0f} kB"
 
-    def __init__(self, *streams: TextIO) -> None:
-        self.streams = streams
 
-    def write(self, text: str) -> int:
-        for stream in self.streams:
-            stream.write(text)
-        return len(text)
-
-    def flush(self) -> None:
-        for stream in self.streams:
-            stream.flush()
+def _listed(paths: Sequence[PathLike], most: int = 6) -> str:
+    names = [str(path) for path in paths]
+    shown = ", ".join(names[:most])
+    return shown if len(names) <= most else f"{shown} and {len(names) - most} more"
 
 
 @contextlib.contextmanager
-def rule_environment(log_path: PathLike, threads: int) -> Iterator[None]:
-    """Send stderr (warnings, errors) to ``log_path`` and cap every thread pool at ``threads``.
+def rule_environment(
+    log_path: PathLike,
+    threads: int,
+    *,
+    inputs: Sequence[PathLike] = (),
+    outputs: Sequence[PathLike] = (),
+) -> Iterator[None]:
+    """Log the job to ``log_path`` and cap every thread pool at ``threads``.
+
+    Records of gloam's loggers at INFO and above, and every warning, go to ``log_path``
+    (:func:`gloam.logs.log_to_file`); warnings also to stderr. The log opens with gloam's
+    version, the thread cap and ``inputs``, and closes with each of ``outputs`` (size, or the
+    number of files of a folder) and the job's wall time. A
+    :class:`~gloam.errors.GloamError` is logged and shown as one line (``gloam: error: ...``,
+    the same in both) and ends the process with status 2; unexpected exceptions are logged
+    with their traceback and re-raised.
 
     BLAS and OpenMP pools are limited with threadpoolctl, gloam's own engine through
     ``GLOAM_NUM_THREADS`` and numba (when loaded) through ``numba.set_num_threads``, so
     jobs running side by side on one node never use more cores than they declared.
-    Unexpected exceptions are written to the log with their traceback and re-raised.
     """
     from threadpoolctl import threadpool_limits
+
+    from gloam import __version__
+    from gloam.logs import log_to_file
 
     threads = max(1, int(threads))
     os.environ["GLOAM_NUM_THREADS"] = str(threads)
@@ -134,15 +170,31 @@ def rule_environment(log_path: PathLike, threads: int) -> Iterator[None]:
 
         numba.set_num_threads(min(threads, numba.config.NUMBA_NUM_THREADS))
     Path(log_path).parent.mkdir(parents=True, exist_ok=True)
-    with open(log_path, "w", encoding="utf-8") as log, warnings.catch_warnings():
-        warnings.showwarning = show_warning  # gloam's own warnings as one line
-        tee = _Tee(log, sys.__stderr__ or log)
-        with contextlib.redirect_stderr(tee), threadpool_limits(limits=threads):  # type: ignore[arg-type]
-            try:
-                yield
-            except Exception:
-                traceback.print_exc(file=log)
-                raise
+    started = time.perf_counter()
+    with log_to_file(log_path), threadpool_limits(limits=threads):
+        _log.info(
+            "gloam %s, Python %s, %d thread(s)", __version__, platform.python_version(), threads
+        )
+        if len(inputs):
+            _log.info("input: %s", _listed(inputs))
+        try:
+            yield
+        except GloamError as error:
+            _log.error("gloam: error: %s", error)
+            report_and_exit(error)
+        except Exception:
+            _log.exception("stopped by an unexpected error")
+            raise
+        except SystemExit as stop:  # Ctrl-C in a rule script (status 130), or another exit
+            if stop.code:
+                _log.error("stopped with exit status %s", stop.code)
+            raise
+        except KeyboardInterrupt:
+            _log.error("interrupted")
+            raise
+        for path in outputs:
+            _log.info("wrote %s (%s)", path, _size(path))
+        _log.info("done in %.1f s", time.perf_counter() - started)
 
 
 def _write_json(data: Mapping[str, Any], path: PathLike) -> None:
@@ -150,13 +202,26 @@ def _write_json(data: Mapping[str, Any], path: PathLike) -> None:
         temporary.write_text(json.dumps(data, indent=2, sort_keys=True) + "\n", encoding="utf-8")
 
 
-def _read_json(path: PathLike, what: str) -> dict[str, Any]:
+def read_json(path: PathLike, what: str) -> dict[str, Any]:
+    """A JSON file of a run (``fuzzifier.json``, ``selection.json``, ...); ``what`` names it
+    in the one-line error when it cannot be read."""
     try:
         return json.loads(Path(path).read_text(encoding="utf-8"))
     except (OSError, json.JSONDecodeError) as error:
         raise GloamError(
             f"{what} {str(path)!r} cannot be read ({error}); rerun its step"
         ) from error
+
+
+def read_table(path: PathLike) -> pd.DataFrame:
+    """A tab-separated table of a run, every number read back to the same double (the tables
+    are written at full precision); gene IDs stay text."""
+    try:
+        return pd.read_csv(
+            path, sep="\t", float_precision="round_trip", dtype={"gene": str, "cluster": str}
+        )
+    except (OSError, pd.errors.ParserError, UnicodeDecodeError) as error:
+        raise GloamError(f"table {str(path)!r} cannot be read ({error}); rerun its step") from error
 
 
 def _write_npz(path: PathLike, **arrays: Any) -> None:
@@ -170,10 +235,14 @@ def _load_npz(path: PathLike, what: str) -> dict[str, np.ndarray]:
     return read_npz_checked(path, what)
 
 
-def _read_prepared(path: PathLike) -> tuple[pd.DataFrame, pd.DataFrame]:
-    from gloam.prepare import read_prepared
+def read_prepared(path: PathLike) -> Any:
+    """The prepared matrix ``prepared/prepared.h5ad`` as AnnData (observations = prepared
+    columns, variables = genes); a damaged file is one line naming it, and is left in place
+    (:func:`gloam.io.read_h5ad_checked`)."""
+    from gloam.io import read_h5ad_checked
+    from gloam.prepare import PREPARED_REMAKE
 
-    return read_prepared(path)
+    return read_h5ad_checked(path, "prepared matrix", remake=PREPARED_REMAKE)
 
 
 # ------------------------------------------------------------------ demo and preparation
@@ -202,6 +271,16 @@ def run_demo(
         n_replicates=n_replicates,
         with_mutant=with_mutant,
     )
+    n_samples = len(pd.read_csv(samples, sep="\t", usecols=[0]))
+    _log.info(
+        "demo written: %d genes x %d samples (%d replicate(s) per time point%s; seed %d)",
+        n_genes,
+        n_samples,
+        n_replicates,
+        ", with the mutant" if with_mutant else "",
+        seed,
+        extra=_PROGRESS,
+    )
 
 
 def run_prepare(
@@ -219,18 +298,26 @@ def run_prepare(
     ``settings`` holds the preparation settings (see :class:`gloam.prepare.PrepareSettings`)
     plus ``layer`` (the ``.h5ad`` layer to read, or None). Returns the
     :class:`gloam.prepare.PreparedData` written, so a caller can go on without reading it
-    back. What was kept and how genes were selected goes to stderr (the job's log).
+    back. What was read, what was kept (and why the others were dropped) and how genes were
+    selected are logged.
     """
     from gloam.io import read_matrix, read_sample_sheet
     from gloam.prepare import prepare_expression, settings_from_mapping, write_prepared
 
     settings = dict(settings)
     layer = settings.pop("layer", None) or None
-    prepared = prepare_expression(
-        read_matrix(matrix, layer=layer),
-        read_sample_sheet(samples),
-        settings_from_mapping(settings),
+    values = read_matrix(matrix, layer=layer)
+    sheet = read_sample_sheet(samples)
+    _log.info(
+        "read %s: %d genes x %d samples%s; sample sheet %s: %d samples",
+        matrix,
+        values.shape[0],
+        values.shape[1],
+        f" (layer {layer})" if layer else "",
+        samples,
+        len(sheet),
     )
+    prepared = prepare_expression(values, sheet, settings_from_mapping(settings))
     write_prepared(
         prepared, h5ad_path=h5ad, tsv_path=zscores, report_path=gene_report, summary_path=summary
     )
@@ -245,14 +332,22 @@ def _log_preparation(prepared: Any) -> None:
     counts = dict(zip(prepared.summary["reason"], prepared.summary["n_genes"], strict=True))
     dropped = ", ".join(f"{reason} {n}" for reason, n in counts.items() if n and reason != "kept")
     total = sum(counts.values())
-    print(
-        f"gloam: read {total} genes x {len(prepared.samples)} samples; kept {counts['kept']} "
-        f"(dropped: {dropped or 'none'}); {prepared.zscores.shape[1]} time-point columns; "
-        f"gene selection: {prepared.selection_method}",
-        file=sys.stderr,
+    n_columns = prepared.zscores.shape[1]
+    conditions = list(dict.fromkeys(prepared.columns["condition"].astype(str)))
+    _log.info(
+        "kept %d of %d genes (dropped: %s); %d samples used in %d time-point column(s) "
+        "(condition(s): %s); gene selection: %s",
+        counts["kept"],
+        total,
+        dropped or "none",
+        len(prepared.samples),
+        n_columns,
+        ", ".join(conditions),
+        prepared.selection_method,
+        extra=_PROGRESS,
     )
     for note in prepared.selection_notes:
-        print(f"gloam: {note}", file=sys.stderr)
+        _log.info("gene selection: %s", note)
     if prepared.selection_method == "no_replicates":
         raise_flag("no_replicates", "genes were selected by the variance rule")
 
@@ -376,10 +471,21 @@ def write_fuzzifier_choice(
         },
         out_json,
     )
-    print(
-        f"gloam: fuzzifier m = {choice.m:.3f} ({choice.method}; formula {choice.formula_m:.3f}); "
-        f"shuffled-data check {'passed' if passed else 'FAILED'}",
-        file=sys.stderr,
+    _log.info(
+        "fuzzifier m = %.3f (setting %r, method %s; the formula gives %.3f for %d genes x %d "
+        "columns); shuffled-data check at c = %d: structure index %.3f at m, %s (flagged from "
+        "%g)",
+        choice.m,
+        settings["m"],
+        choice.method,
+        choice.formula_m,
+        n_genes,
+        zscores.shape[1],
+        choice.n_clusters_check,
+        index,
+        "passed" if passed else "FAILED",
+        FUZZIFIER_FLAG_INDEX,
+        extra=_PROGRESS,
     )
     return float(choice.m)
 
@@ -456,6 +562,15 @@ def write_scan_input(
             [position[order[str(sample)]] for sample in replicates.columns], dtype=np.int64
         )
     _write_npz(out_npz, **arrays)
+    _log.info(
+        "scan input: %d genes x %d columns, m = %.3f; resampling %s",
+        zscores.shape[0],
+        len(names),
+        m,
+        f"of replicates possible ({arrays['replicates'].shape[1]} samples kept)"
+        if "replicates" in arrays
+        else "of genes only (no per-sample values)",
+    )
 
 
 def read_scan_input(path: PathLike) -> ScanInput:
@@ -492,6 +607,7 @@ _SCAN_DEFAULTS = {
     "max_starts": 100,
     "noise_class": True,
     "n_resamples": 20,
+    "acceleration": "squarem",
 }
 
 
@@ -524,6 +640,7 @@ def _solve_at(
         max_starts=int(options["max_starts"]),
         noise_class=bool(options["noise_class"]),
         n_resamples=int(options["n_resamples"]),
+        acceleration=str(options["acceleration"]),
         replicates=replicates,
         sample_column=sample_column,
     )
@@ -583,17 +700,27 @@ def run_scan(
     data = read_scan_input(scan_input)
     c = int(n_clusters)
     n_genes = len(data.zscores)
+    _log.info(
+        "read %s: %d genes x %d columns, m = %.3f",
+        scan_input,
+        n_genes,
+        data.zscores.shape[1],
+        data.m,
+    )
     check_clusters_fit_genes(c, n_genes)
     options = {**_SCAN_DEFAULTS, **{k: settings[k] for k in SCAN_SETTINGS if k in settings}}
-    partition = _solve_at(
-        data.zscores.to_numpy(),
-        c,
-        data.m,
-        options,
-        rng=np.random.default_rng([int(seed), c]),
-        replicates=data.replicates,
-        sample_column=data.sample_column,
-    )
+    started = time.perf_counter()
+    with about(f"c = {c}"):
+        partition = _solve_at(
+            data.zscores.to_numpy(),
+            c,
+            data.m,
+            options,
+            rng=np.random.default_rng([int(seed), c]),
+            replicates=data.replicates,
+            sample_column=data.sample_column,
+        )
+    seconds = time.perf_counter() - started
     metrics = dict(partition.metrics)
     metrics["few_starts_at_optimum"] = metrics["n_at_optimum"] < int(
         options["min_starts_at_optimum"]
@@ -624,12 +751,32 @@ def run_scan(
         columns=data.zscores.columns.to_numpy(dtype=str),
         metrics=np.str_(json.dumps(metrics)),
     )
-    print(
-        f"gloam: c = {c}: {metrics['n_at_optimum']} of {metrics['n_starts']} starts at the "
-        f"optimum; smallest cluster {metrics['min_core_genes']} core genes; smallest mean "
-        f"Jaccard {metrics['min_jaccard']:.2f} ({metrics['resampling']} resampled); "
-        f"{metrics['n_noise']} noise genes",
-        file=sys.stderr,
+    n_resamples = 0 if partition.jaccard is None else int(partition.jaccard.shape[0])
+    _log.info(
+        "scan c = %d%s: %d starts, %d at the best objective %.6g, %d not converged within "
+        "%d iterations; %d resamples (%s); %.1f s",
+        c,
+        position(),
+        metrics["n_starts"],
+        metrics["n_at_optimum"],
+        metrics["objective"],
+        metrics["n_not_converged"],
+        int(options["max_iter"]),
+        n_resamples,
+        metrics["resampling"],
+        seconds,
+        extra=_PROGRESS,
+    )
+    _log.info(
+        "c = %d: smallest cluster %d core genes, smallest mean Jaccard %.2f, largest centroid "
+        "correlation %.2f, smallest coherence %.2f, nearest-pair p %.2g, %d noise genes",
+        c,
+        metrics["min_core_genes"],
+        metrics["min_jaccard"],
+        metrics["max_centroid_correlation"],
+        metrics["min_coherence"],
+        metrics["max_pair_p_value"],
+        metrics["n_noise"],
     )
 
 
@@ -700,7 +847,7 @@ def run_select(
 
     options = {**_SELECTION_DEFAULTS, **settings}
     data = read_scan_input(scan_input)
-    fuzzifier = _read_json(fuzzifier_json, "fuzzifier choice")
+    fuzzifier = read_json(fuzzifier_json, "fuzzifier choice")
     file_of: dict[int, PathLike] = {}
     rows = []
     for path in scan_files:
@@ -708,9 +855,20 @@ def run_select(
         file_of[int(metrics["n_clusters"])] = path
         rows.append(metrics)
     table = pd.DataFrame(rows)
+    _log.info(
+        "read %s: %d genes x %d columns, m = %.3f (%s); %d scan file(s), c = %s",
+        scan_input,
+        len(data.zscores),
+        data.zscores.shape[1],
+        data.m,
+        fuzzifier.get("method", "?"),
+        len(file_of),
+        ", ".join(str(c) for c in sorted(file_of)),
+    )
     structure, judged = _structure_and_judgement(
         data.zscores.to_numpy(), data.m, table, options, rng=np.random.default_rng([int(seed), 1])
     )
+    _log_judgement(structure, judged, options)
     recommended = recommended_n_clusters(judged)
     if recommended > 1:
         reason = str(judged.loc[judged["recommended"], "reason"].iloc[0])
@@ -784,12 +942,13 @@ def run_select(
                 "unseparated_clusters",
                 f"c = {used}: nearest-pair p = {row['max_pair_p_value']:.2g}",
             )
-        consensus = consensus_arrays(read_scan(file_of[used], data.zscores.index), data)
+        with about(f"c = {used}"):
+            consensus = consensus_arrays(read_scan(file_of[used], data.zscores.index), data)
     else:
         consensus = single_group_arrays(data)
     n_noise = int((consensus["top_class"] < 0).sum())
     if n_noise > MOSTLY_NOISE_SHARE * len(data.zscores):
-        flag("mostly_noise", f"{n_noise} of {len(data.zscores)} genes")
+        flag("mostly_noise", f"c = {used}: {n_noise} of {len(data.zscores)} genes")
     judged["used"] = judged["n_clusters"] == used
     write_table(judged, out_validity)
     _write_json(
@@ -816,11 +975,47 @@ def run_select(
         out_selection,
     )
     _write_npz(out_consensus, **consensus)
-    print(
-        f"gloam: c = {used} ({method}; recommended {recommended}): {reason}; "
-        f"{n_noise} noise genes; flags: {', '.join(details) or 'none'}",
-        file=sys.stderr,
+    _log.info(
+        "chosen c = %d (%s; recommended %d): %s; %d noise genes; flags: %s",
+        used,
+        method,
+        recommended,
+        reason,
+        n_noise,
+        ", ".join(details) or "none",
+        extra=_PROGRESS,
     )
+
+
+def _log_judgement(structure: Any, judged: pd.DataFrame, options: Mapping[str, Any]) -> None:
+    """The structure test, the criteria and the verdict on every scanned c, for the log."""
+    _log.info(
+        "structure test: p = %.3g at level %g, structure %s",
+        structure.p_value,
+        structure.alpha,
+        "present" if structure.present else "absent",
+    )
+    _log.info(
+        "criteria: smallest mean Jaccard >= %g, smallest cluster >= %d core genes, centroid "
+        "correlation <= %g, coherence >= %g, nearest-pair p < %g",
+        options["stable_jaccard"],
+        int(options["min_core_genes"]),
+        options["max_centroid_correlation"],
+        options["min_coherence"],
+        options["structure_alpha"],
+    )
+    for row in judged.to_dict("records"):
+        _log.info(
+            "c = %d: %s (Jaccard %.2f, core genes %d, correlation %.2f, coherence %.2f, "
+            "pair p %.2g)",
+            row["n_clusters"],
+            "passes" if row["passes"] else f"fails {row['failed']}",
+            row["min_jaccard"],
+            row["min_core_genes"],
+            row["max_centroid_correlation"],
+            row["min_coherence"],
+            row["max_pair_p_value"],
+        )
 
 
 def _peak_order(centroids: np.ndarray, data: ScanInput) -> np.ndarray:
@@ -952,6 +1147,49 @@ def membership_frame(consensus: Mapping[str, np.ndarray]) -> pd.DataFrame:
     return table
 
 
+def expression_frame(prepared_data: Any, genes: Sequence[str]) -> pd.DataFrame:
+    """Mean expression, range and peak time of each gene, per condition, for the tables.
+
+    Parameters
+    ----------
+    prepared_data : anndata.AnnData
+        The prepared matrix (:func:`read_prepared`): layer ``log_mean`` (time-point columns x
+        genes, the replicate means on the log scale: log2 of normalised counts, or the
+        matrix's own log scale) and ``obs`` columns ``time`` and ``condition``.
+    genes : sequence of str
+        The genes of the table, in its order (all must be in the prepared matrix).
+
+    Returns
+    -------
+    pandas.DataFrame
+        Indexed by gene. With one condition: ``mean_log2`` (mean over the time points),
+        ``log2_range`` (max - min of the profile) and ``peak_time`` (time of the maximum, the
+        first on ties; unit of the sample sheet). With several conditions the same three per
+        condition ``<c>``: ``mean_log2_<c>``, ``log2_range_<c>``, ``peak_time_<c>``.
+    """
+    from gloam.prepare import LOG_MEAN_LAYER
+
+    positions = prepared_data.var_names.get_indexer(pd.Index(genes).astype(str))
+    if (positions < 0).any():
+        raise GloamError(
+            "the consensus names genes that the prepared matrix does not hold; rerun the run "
+            "from its preparation"
+        )
+    values = np.asarray(prepared_data.layers[LOG_MEAN_LAYER], dtype=np.float64).T[positions]
+    times = prepared_data.obs["time"].to_numpy(dtype=np.float64)
+    conditions = prepared_data.obs["condition"].astype(str).to_numpy()
+    names = list(dict.fromkeys(conditions))
+    columns: dict[str, np.ndarray] = {}
+    for name in names:
+        inside = conditions == name
+        block, block_times = values[:, inside], times[inside]
+        suffix = f"_{name}" if len(names) > 1 else ""
+        columns[f"mean_log2{suffix}"] = block.mean(axis=1)
+        columns[f"log2_range{suffix}"] = np.ptp(block, axis=1)
+        columns[f"peak_time{suffix}"] = block_times[np.argmax(block, axis=1)]
+    return pd.DataFrame(columns, index=pd.Index(list(genes), name="gene"))
+
+
 def cluster_frame(consensus: Mapping[str, np.ndarray]) -> pd.DataFrame:
     """``clusters.tsv``: one row per cluster (see the README's output table)."""
     from gloam.partition import CORE_LEVEL_FOR_CRITERIA, centroid_correlation
@@ -1005,14 +1243,31 @@ def export_tables(
     out_centroids: PathLike,
     out_clusters: PathLike,
     out_robustness: PathLike,
+    prepared: PathLike | None = None,
 ) -> None:
     """Write ``memberships.tsv``, ``centroids.tsv``, ``clusters.tsv`` and ``robustness.tsv``.
 
     Values are written at full precision (:func:`gloam.io.write_table`). Columns are listed
-    in the README's output table.
+    in the README's output table. With ``prepared`` (the prepared matrix), the memberships
+    carry each gene's mean expression, range and peak time beside them
+    (:func:`expression_frame`).
     """
     data = read_consensus(consensus_npz)
-    write_table(membership_frame(data).reset_index(), out_memberships)
+    names = data["cluster_names"].tolist()
+    sizes = np.bincount(data["top_class"] + 1, minlength=len(names) + 1)  # noise (-1) first
+    _log.info(
+        "read %s: %d genes x %d cluster(s); genes by largest membership: %s, noise %d",
+        consensus_npz,
+        len(data["genes"]),
+        len(names),
+        ", ".join(f"{name} {n}" for name, n in zip(names, sizes[1:], strict=True)),
+        sizes[0],
+    )
+    memberships = membership_frame(data)
+    if prepared is not None:
+        genes = memberships.index.tolist()
+        memberships = memberships.join(expression_frame(read_prepared(prepared), genes))
+    write_table(memberships.reset_index(), out_memberships)
     centroids = pd.DataFrame(
         data["centroids"],
         index=pd.Index(data["cluster_names"].tolist(), name="cluster"),
@@ -1051,6 +1306,34 @@ def export_gene_sets(
             prefix=prefix,
             noise=noise,
             core_sets=memberships.shape[1] > 1,
+        )
+    _log_core_genes(memberships, noise, thresholds)
+
+
+def _log_core_genes(
+    memberships: pd.DataFrame, noise: pd.Series, thresholds: Sequence[float]
+) -> None:
+    """How many genes are core at each threshold, per cluster, for the log."""
+    from gloam.genesets import core_genes
+
+    n_genes = len(memberships)
+    if memberships.shape[1] < 2:
+        _log.info(
+            "no clusters (c = 1): empty core-gene lists; background of %d genes",
+            n_genes,
+            extra=_PROGRESS,
+        )
+        return
+    for threshold in thresholds:
+        sets = core_genes(memberships, threshold, noise)
+        union = len(set().union(*sets.values()))
+        _log.info(
+            "core genes at membership >= %g: %d of %d genes (%s)",
+            threshold,
+            union,
+            n_genes,
+            ", ".join(f"{name} {len(members)}" for name, members in sets.items()),
+            extra=_PROGRESS,
         )
 
 
@@ -1113,9 +1396,8 @@ def export_h5ad(
         (the JSON records, with the structure test and the quality flags), ``settings``
         (the run's settings) and ``versions`` (packages).
     """
-    import anndata
 
-    data = anndata.read_h5ad(prepared)
+    data = read_prepared(prepared)
     consensus = read_consensus(consensus_npz)
     genes = consensus["genes"]
     if not np.array_equal(np.asarray(data.var_names, dtype=str), genes):
@@ -1147,35 +1429,36 @@ def export_h5ad(
             "m": float(consensus["m"]),
             "noise_distance": float(consensus["noise_distance"]),
             "seed": settings.get("seed"),
-            "fuzzifier": _read_json(fuzzifier_json, "fuzzifier choice"),
-            "selection": _read_json(selection_json, "selection"),
+            "fuzzifier": read_json(fuzzifier_json, "fuzzifier choice"),
+            "selection": read_json(selection_json, "selection"),
             "settings": dict(settings),
             "versions": _versions(),
         }
     )
-    with atomic_output(out_h5ad) as temporary:
-        data.write_h5ad(temporary)
+    write_h5ad(data, out_h5ad)
 
 
 # ------------------------------------------------------------------ figures
 
 FigurePaths = tuple[PathLike, ...]  # (PNG, PDF, SVG)
 
+# Every figure stage has the same signature, ``figure_<name>(files, settings, paths)``:
+# ``files`` maps run-file paths of the registry (gloam.artifacts.RUN_FILES, e.g.
+# "consensus.npz") to where they are, ``settings`` holds ``time_unit`` and, for figures that
+# show core genes, ``core_threshold``; ``paths`` is (PNG, PDF, SVG). The registry of figures
+# (gloam.artifacts.FIGURES) names each figure's stage, and :func:`draw_figures` draws all of a
+# rule's figures, so a new figure needs no change to the export stages or the rules.
+
 
 def figure_profiles(
-    prepared: PathLike,
-    consensus_npz: PathLike,
-    core_threshold: float,
-    time_unit: str,
-    paths: FigurePaths,
+    files: Mapping[str, PathLike], settings: Mapping[str, Any], paths: FigurePaths
 ) -> None:
-    """Per-cluster temporal profiles (see :func:`gloam.plots.plot_cluster_profiles`)."""
-    import anndata
-
+    """Per-cluster temporal profiles (see :func:`gloam.plots.plot_cluster_profiles`), with
+    bands over the core genes at ``settings["core_threshold"]``."""
     from gloam.plots import plot_cluster_profiles, save_figure
 
-    consensus = read_consensus(consensus_npz)
-    prepared_data = anndata.read_h5ad(prepared)
+    consensus = read_consensus(files["consensus.npz"])
+    prepared_data = read_prepared(files["prepared/prepared.h5ad"])
     log_means = np.asarray(prepared_data.layers["log_mean"], dtype=np.float64).T
     zscores = np.asarray(prepared_data.X, dtype=np.float64).T
     conditions = consensus["conditions"].astype(str).tolist()
@@ -1188,20 +1471,22 @@ def figure_profiles(
         noise=consensus["noise"] if consensus["noise"].any() else None,
         log_means=log_means,
         conditions=conditions if len(set(conditions)) > 1 else None,
-        core_threshold=float(core_threshold),
+        core_threshold=float(settings["core_threshold"]),
         cluster_labels=consensus["cluster_names"].tolist(),
-        time_unit=time_unit,
+        time_unit=str(settings["time_unit"]),
         jaccard=np.nanmean(jaccard, axis=0) if jaccard.shape[0] else None,
     )
     save_figure(figure, *paths)
 
 
-def figure_validity(validity_tsv: PathLike, selection_json: PathLike, paths: FigurePaths) -> None:
+def figure_validity(
+    files: Mapping[str, PathLike], settings: Mapping[str, Any], paths: FigurePaths
+) -> None:
     """The criteria that decide c, for every scanned c, with the c used marked."""
     from gloam.plots import plot_validity, save_figure
 
-    table = pd.read_csv(validity_tsv, sep="\t")
-    selection = _read_json(selection_json, "selection")
+    table = read_table(files["validity.tsv"])
+    selection = read_json(files["selection.json"], "selection")
     criteria = selection.get("criteria", {})
     figure = plot_validity(
         table,
@@ -1213,12 +1498,14 @@ def figure_validity(validity_tsv: PathLike, selection_json: PathLike, paths: Fig
     save_figure(figure, *paths)
 
 
-def figure_fuzzifier(fuzzifier_json: PathLike, curve_tsv: PathLike, paths: FigurePaths) -> None:
+def figure_fuzzifier(
+    files: Mapping[str, PathLike], settings: Mapping[str, Any], paths: FigurePaths
+) -> None:
     """The randomised-data curve with the m used (and the formula's m) marked."""
     from gloam.plots import plot_fuzzifier_curve, save_figure
 
-    choice = _read_json(fuzzifier_json, "fuzzifier choice")
-    curve = pd.read_csv(curve_tsv, sep="\t")
+    choice = read_json(files["fuzzifier.json"], "fuzzifier choice")
+    curve = read_table(files["fuzzifier_curve.tsv"])
     figure = plot_fuzzifier_curve(
         curve, float(choice["m"]), formula_m=float(choice["formula_m"]), method=choice["method"]
     )
@@ -1226,17 +1513,14 @@ def figure_fuzzifier(fuzzifier_json: PathLike, curve_tsv: PathLike, paths: Figur
 
 
 def figure_overview(
-    consensus_npz: PathLike,
-    selection_json: PathLike,
-    time_unit: str,
-    paths: FigurePaths,
+    files: Mapping[str, PathLike], settings: Mapping[str, Any], paths: FigurePaths
 ) -> None:
     """Cluster overview: shape, sizes, robustness, peak time and similarity."""
     from gloam.partition import CORE_LEVEL_FOR_CRITERIA
     from gloam.plots import plot_cluster_overview, save_figure
 
-    consensus = read_consensus(consensus_npz)
-    criteria = _read_json(selection_json, "selection").get("criteria", {})
+    consensus = read_consensus(files["consensus.npz"])
+    criteria = read_json(files["selection.json"], "selection").get("criteria", {})
     conditions = consensus["conditions"].astype(str).tolist()
     figure = plot_cluster_overview(
         cluster_frame(consensus),
@@ -1244,12 +1528,46 @@ def figure_overview(
         cluster_labels=consensus["cluster_names"].tolist(),
         times=consensus["times"],
         conditions=conditions if len(set(conditions)) > 1 else None,
-        time_unit=time_unit,
+        time_unit=str(settings["time_unit"]),
         core_threshold=CORE_LEVEL_FOR_CRITERIA,
         stable_jaccard=float(criteria.get("stable_jaccard", 0.75)),
         max_corr=float(criteria.get("max_centroid_correlation", 0.9)),
     )
     save_figure(figure, *paths)
+
+
+def draw_figures(
+    writer: str,
+    files: Mapping[str, PathLike],
+    settings: Mapping[str, Any],
+    figures: Mapping[str, FigurePaths],
+) -> None:
+    """Draw every figure that rule ``writer`` owns in the registry (gloam.artifacts.FIGURES).
+
+    Parameters
+    ----------
+    writer : str
+        The rule (``export`` or ``core_genes``).
+    files, settings
+        As for each figure stage (see above).
+    figures : mapping
+        Figure name -> (PNG, PDF, SVG) paths; exactly the figures the registry gives
+        ``writer`` in ``figures/``.
+    """
+    from gloam.artifacts import FIGURES, resolve
+
+    owned = {
+        name
+        for name, figure in FIGURES.items()
+        if figure.writer == writer and figure.folder == "figures"
+    }
+    if set(figures) != owned:
+        raise ValueError(
+            f"rule {writer!r} draws the figures {sorted(owned)} (gloam.artifacts.FIGURES), "
+            f"but paths were given for {sorted(figures)}"
+        )
+    for name in sorted(figures):
+        resolve(FIGURES[name].draw)(files, settings, figures[name])
 
 
 # ------------------------------------------------------------------ the two export stages
@@ -1269,27 +1587,37 @@ def export_results(
     clusters: PathLike,
     robustness: PathLike,
     h5ad: PathLike,
-    validity_figure: FigurePaths,
-    fuzzifier_figure: FigurePaths,
-    overview_figure: FigurePaths,
+    figures: Mapping[str, FigurePaths],
 ) -> None:
     """Everything of a run that does not depend on the core-gene thresholds.
 
-    The tables (:func:`export_tables`), ``gloam.h5ad`` (:func:`export_h5ad`) and the
-    validity, fuzzifier and cluster-overview figures (PNG, PDF, SVG).
+    The tables (:func:`export_tables`), ``gloam.h5ad`` (:func:`export_h5ad`) and the figures
+    the registry gives the rule ``export`` (validity, fuzzifier, cluster overview), each as
+    PNG, PDF and SVG at ``figures[name]``.
     """
     export_tables(
         consensus_npz,
+        prepared=prepared,
         out_memberships=memberships,
         out_centroids=centroids,
         out_clusters=clusters,
         out_robustness=robustness,
     )
     export_h5ad(prepared, consensus_npz, fuzzifier_json, selection_json, settings, h5ad)
-    figure_validity(validity_tsv, selection_json, validity_figure)
-    figure_fuzzifier(fuzzifier_json, fuzzifier_curve, fuzzifier_figure)
-    figure_overview(
-        consensus_npz, selection_json, str(settings.get("time_unit", "h")), overview_figure
+    files = {
+        "prepared/prepared.h5ad": prepared,
+        "consensus.npz": consensus_npz,
+        "fuzzifier.json": fuzzifier_json,
+        "fuzzifier_curve.tsv": fuzzifier_curve,
+        "selection.json": selection_json,
+        "validity.tsv": validity_tsv,
+    }
+    draw_figures("export", files, {"time_unit": str(settings.get("time_unit", "h"))}, figures)
+    _log.info(
+        "exported the tables, %s and the figures %s",
+        Path(h5ad).name,
+        ", ".join(sorted(figures)),
+        extra=_PROGRESS,
     )
 
 
@@ -1300,16 +1628,25 @@ def export_core_genes(
     time_unit: str,
     *,
     genesets: PathLike,
-    profiles_figure: FigurePaths,
+    figures: Mapping[str, FigurePaths],
     prefix: str = "gloam",
 ) -> None:
     """Everything of a run that depends on the core-gene thresholds.
 
-    The gene-set folder (:func:`export_gene_sets`) and the cluster-profile figure, whose
-    bands show the core genes at the largest threshold (:func:`figure_profiles`).
+    The gene-set folder (:func:`export_gene_sets`) and the figures the registry gives the
+    rule ``core_genes`` (the cluster profiles, whose bands show the core genes at the largest
+    threshold).
     """
     export_gene_sets(consensus_npz, thresholds, genesets, prefix=prefix)
-    figure_profiles(prepared, consensus_npz, max(thresholds), time_unit, profiles_figure)
+    files = {"prepared/prepared.h5ad": prepared, "consensus.npz": consensus_npz}
+    settings = {"time_unit": time_unit, "core_threshold": max(thresholds)}
+    draw_figures("core_genes", files, settings, figures)
+    _log.info(
+        "exported the gene sets to %s and the figures %s (core genes at %g)",
+        genesets,
+        ", ".join(sorted(figures)),
+        max(thresholds),
+    )
 
 
 # ------------------------------------------------------------------ summary across runs
@@ -1331,8 +1668,8 @@ def summarise_runs(
     ``structure_p_value``, ``min_jaccard`` (smallest mean resampling Jaccard of a cluster at
     the c used), ``mean_start_agreement``, ``flags`` (quality flags, comma-separated), and
     per threshold ``t``: ``core_genes_<t>`` (genes core in some cluster) and
-    ``core_sizes_<t>`` (``C1=…;C2=…``). Each run also gets one line on stderr (the job's
-    log and the terminal) with m, c and its flags.
+    ``core_sizes_<t>`` (``C1=…;C2=…``). Each run also gets one line in the log with m, c
+    and its flags (:func:`run_lines`).
     """
     if not len(runs) == len(fuzzifier_files) == len(selection_files) == len(consensus_files):
         raise GloamError("summary needs one fuzzifier, selection and consensus file per run")
@@ -1340,8 +1677,8 @@ def summarise_runs(
     for run, fuzzifier, selection, consensus_npz in zip(
         runs, fuzzifier_files, selection_files, consensus_files, strict=True
     ):
-        choice = _read_json(fuzzifier, "fuzzifier choice")
-        chosen = _read_json(selection, "selection")
+        choice = read_json(fuzzifier, "fuzzifier choice")
+        chosen = read_json(selection, "selection")
         consensus = read_consensus(consensus_npz)
         memberships = consensus["memberships"]
         names = consensus["cluster_names"].tolist()
@@ -1376,13 +1713,60 @@ def summarise_runs(
                 f"{name}={int(size)}" for name, size in zip(names, core.sum(axis=0), strict=True)
             )
         rows.append(row)
-        print(
-            f"gloam: run {run['run']}: m = {float(choice['m']):.3f}, "
-            f"c = {int(chosen['n_clusters'])} ({chosen['method']}), {row['n_noise']} noise "
-            f"genes, flags: {flags or 'none'}",
-            file=sys.stderr,
-        )
     write_table(pd.DataFrame(rows), out_tsv)
+    for row in rows:
+        _log.info("%s", _run_line(row), extra=_PROGRESS)
+
+
+#: Columns of ``summary.tsv`` that :func:`run_lines` reads.
+RUN_LINE_COLUMNS = (
+    "run",
+    "n_genes_clustered",
+    "n_noise",
+    "m",
+    "m_method",
+    "n_clusters",
+    "n_clusters_method",
+    "recommended_n_clusters",
+    "flags",
+)
+
+
+def _run_line(row: Mapping[str, Any]) -> str:
+    flags = str(row["flags"]).replace(",", ", ")
+    return (
+        f"run {row['run']}: m = {float(row['m']):.3f} ({row['m_method']}), "
+        f"c = {int(row['n_clusters'])} ({row['n_clusters_method']}, recommended "
+        f"{int(row['recommended_n_clusters'])}), {int(row['n_genes_clustered'])} genes of which "
+        f"{int(row['n_noise'])} noise, flags: {flags or 'none'}"
+    )
+
+
+def run_lines(summary_tsv: PathLike) -> list[str]:
+    """One line per run of ``summary.tsv`` (:func:`summarise_runs`): its m, c and quality flags.
+
+    For the end of a workflow run, e.g. ``run demo: m = 1.162 (formula), c = 4 (auto,
+    recommended 4), 300 genes of which 12 noise, flags: none`` (no ``gloam:`` prefix).
+    Reads the file only; an empty summary gives no line.
+
+    Raises
+    ------
+    GloamError
+        If the file cannot be read or lacks a column of :data:`RUN_LINE_COLUMNS`.
+    """
+    try:
+        table = pd.read_csv(summary_tsv, sep="\t", dtype=str, keep_default_na=False)
+    except (OSError, pd.errors.ParserError, pd.errors.EmptyDataError) as error:
+        raise GloamError(
+            f"run summary {str(summary_tsv)!r} cannot be read ({error}); rerun the workflow"
+        ) from error
+    missing = [name for name in RUN_LINE_COLUMNS if name not in table.columns]
+    if missing:
+        raise GloamError(
+            f"run summary {str(summary_tsv)!r} lacks the column(s) {missing}; it was not "
+            "written by this gloam: rerun the workflow's summary step"
+        )
+    return [_run_line(row) for row in table.to_dict("records")]
 
 
 #: Columns of ``sensitivity.tsv`` (then those of :func:`gloam.compare.sensitivity_summary`).
@@ -1402,6 +1786,118 @@ SENSITIVITY_COLUMNS = (
 )
 
 
+def _clustered_run(consensus: Mapping[str, np.ndarray]) -> Any:
+    """A run's consensus as :class:`gloam.compare.ClusteredRun` (times of its columns too)."""
+    from gloam.compare import ClusteredRun
+
+    genes = consensus["genes"].astype(str)
+    return ClusteredRun(
+        centroids=consensus["centroids"],
+        memberships=pd.DataFrame(
+            consensus["memberships"], index=genes, columns=consensus["cluster_names"].tolist()
+        ),
+        times=np.asarray(consensus["times"], dtype=np.float64) if "times" in consensus else None,
+        noise=pd.Series(consensus["noise"], index=genes),
+    )
+
+
+#: Columns of ``results/matches.tsv``: clusters of different datasets matched.
+MATCH_COLUMNS = (
+    "variant",
+    "condition",
+    "run_a",
+    "run_b",
+    "cluster_a",
+    "cluster_b",
+    "correlation",
+    "jaccard",
+    "n_core_a",
+    "n_core_b",
+    "n_core_both",
+    "ari",
+    "n_shared_genes",
+)
+
+
+def summarise_matches(
+    runs: Sequence[Mapping[str, Any]], consensus_files: Sequence[PathLike], out_tsv: PathLike
+) -> None:
+    """Clusters of different datasets matched, for every pair run under the same settings.
+
+    Runs of two datasets with the same settings variant and condition are matched with
+    :func:`gloam.compare.match_clusters`: clusters paired one-to-one by centroid correlation
+    (Hungarian method, ``scipy.optimize.linear_sum_assignment``), on the shared time points
+    when the datasets were sampled at different times (centroids interpolated in time, see
+    :func:`gloam.compare.centroid_correlation`), with the core-gene Jaccard of each pair and the
+    adjusted Rand index of the whole partitions on the genes both clustered. Runs whose
+    columns are several conditions side by side are matched only when their columns are the
+    same. One row per cluster pair (and per cluster left without a partner);
+    :data:`MATCH_COLUMNS`. With one dataset the file holds the header alone.
+    """
+    from gloam.compare import match_clusters
+
+    groups: dict[tuple[str, str], list[tuple[str, str, Any, tuple[str, ...]]]] = {}
+    for run, path in zip(runs, consensus_files, strict=True):
+        key = (str(run.get("variant") or ""), str(run.get("condition") or ""))
+        consensus = read_consensus(path)
+        # Several conditions side by side: matched only to runs with the same columns.
+        several = len(set(consensus["conditions"].astype(str).tolist())) > 1
+        columns = tuple(consensus["columns"].astype(str).tolist()) if several else ()
+        groups.setdefault(key, []).append(
+            (str(run["dataset"]), str(run["run"]), _clustered_run(consensus), columns)
+        )
+    tables = []
+    for (variant, condition), members in groups.items():
+        for index, (dataset_a, run_a, clustered_a, side_a) in enumerate(members):
+            for dataset_b, run_b, clustered_b, side_b in members[index + 1 :]:
+                if dataset_a == dataset_b:
+                    continue
+                if side_a != side_b:
+                    _log.info(
+                        "matches: %s and %s not matched: their columns are several conditions "
+                        "that differ",
+                        run_a,
+                        run_b,
+                    )
+                    continue
+                same_columns = bool(side_a)
+                try:
+                    match = match_clusters(
+                        clustered_a.centroids,
+                        clustered_b.centroids,
+                        clustered_a.memberships,
+                        clustered_b.memberships,
+                        times_a=None if same_columns else clustered_a.times,
+                        times_b=None if same_columns else clustered_b.times,
+                        noise_a=clustered_a.noise,
+                        noise_b=clustered_b.noise,
+                    )
+                except GloamError as error:
+                    _log.info("matches: %s and %s not matched: %s", run_a, run_b, error)
+                    continue
+                keys = {"variant": variant, "condition": condition, "run_a": run_a, "run_b": run_b}
+                table = match.table.assign(**keys)
+                table["ari"] = match.ari
+                table["n_shared_genes"] = match.n_shared_genes
+                tables.append(table)
+                _log.info(
+                    "matches: %s and %s: %d cluster pair(s), ARI %.2f on %d shared genes",
+                    run_a,
+                    run_b,
+                    int(match.table["correlation"].notna().sum()),
+                    match.ari,
+                    match.n_shared_genes,
+                )
+    result = (
+        pd.concat(tables, ignore_index=True)[list(MATCH_COLUMNS)]
+        if tables
+        else pd.DataFrame(columns=list(MATCH_COLUMNS))
+    )
+    write_table(result, out_tsv)
+    if not tables:
+        _log.info("matches: fewer than two datasets under the same settings; header only")
+
+
 def summarise_sensitivity(
     runs: Sequence[Mapping[str, Any]], consensus_files: Sequence[PathLike], out_tsv: PathLike
 ) -> None:
@@ -1414,7 +1910,7 @@ def summarise_sensitivity(
     other run; :data:`SENSITIVITY_COLUMNS`. Datasets run under one setting only give no row
     (the file then holds the header alone).
     """
-    from gloam.compare import ClusteredRun, sensitivity_summary
+    from gloam.compare import sensitivity_summary
 
     groups: dict[tuple[str, str], list[tuple[Mapping[str, Any], PathLike]]] = {}
     for run, path in zip(runs, consensus_files, strict=True):
@@ -1424,19 +1920,7 @@ def summarise_sensitivity(
     for (dataset, condition), members in groups.items():
         if len(members) < 2:
             continue
-        clustered = {}
-        for run, path in members:
-            consensus = read_consensus(path)
-            genes = consensus["genes"].astype(str)
-            clustered[str(run["run"])] = ClusteredRun(
-                centroids=consensus["centroids"],
-                memberships=pd.DataFrame(
-                    consensus["memberships"],
-                    index=genes,
-                    columns=consensus["cluster_names"].tolist(),
-                ),
-                noise=pd.Series(consensus["noise"], index=genes),
-            )
+        clustered = {str(run["run"]): _clustered_run(read_consensus(path)) for run, path in members}
         reference = next(
             (str(run["run"]) for run, _ in members if not run.get("variant")),
             str(members[0][0]["run"]),
@@ -1452,6 +1936,15 @@ def summarise_sensitivity(
         else pd.DataFrame(columns=list(SENSITIVITY_COLUMNS))
     )
     write_table(result, out_tsv)
+    if tables:
+        _log.info(
+            "sensitivity: %d run(s) matched to the reference run of their dataset (%d dataset(s) "
+            "with settings variants)",
+            len(result),
+            len(tables),
+        )
+    else:
+        _log.info("sensitivity: no dataset was run under more than one setting; header only")
 
 
 # ------------------------------------------------------------------ conditions compared
@@ -1483,12 +1976,11 @@ TRANSITION_COLUMNS = (
 def _condition_test(prepared: PathLike, gene_report: PathLike, fdr: float) -> tuple[Any, str]:
     """The interaction test of the prepared genes (from the preparation's gene report) and
     their per-condition effect sizes; or None and the reason there is nothing to compare."""
-    import anndata
 
     from gloam.compare import InteractionTest, condition_profiles
     from gloam.prepare import LOG_MEAN_LAYER
 
-    data = anndata.read_h5ad(prepared)
+    data = read_prepared(prepared)
     genes = pd.Index(np.asarray(data.var_names, dtype=str), name="gene")
     conditions = list(dict.fromkeys(data.obs["condition"].astype(str)))
     if len(conditions) < 2:
@@ -1590,15 +2082,17 @@ def run_comparison(
         _write_json(record, staging / "selection.json")
     if record["compared"]:
         counts = record["status_counts"]
-        print(
-            f"gloam: conditions compared ({', '.join(record['conditions'])}): "
-            f"{record['n_clusters']} shared responses (m = {record['m']:.3f}); "
-            + ", ".join(f"{k} {v}" for k, v in counts.items())
-            + " genes",
-            file=sys.stderr,
+        _log.info(
+            "conditions compared (%s): %d shared responses (m = %.3f): %s; genes by status: %s",
+            ", ".join(record["conditions"]),
+            record["n_clusters"],
+            record["m"],
+            record["reason"],
+            ", ".join(f"{k} {v}" for k, v in counts.items()),
+            extra=_PROGRESS,
         )
     else:
-        print(f"gloam: conditions not compared: {record['reason']}", file=sys.stderr)
+        _log.info("conditions not compared: %s", record["reason"], extra=_PROGRESS)
 
 
 def _compare_into(
@@ -1649,14 +2143,38 @@ def _compare_into(
             "and more than the smallest scanned c are needed)",
         }
     m = schwaemmle_jensen_m(n_rows, n_times)
+    _log.info(
+        "read %s: %d genes in %d conditions (%s); %d of %d gene-condition profiles change over "
+        "time; m = %.3f for them (Schwaemmle & Jensen 2010); c = %s",
+        prepared,
+        cube.shape[0],
+        len(profiles.conditions),
+        ", ".join(profiles.conditions),
+        n_rows,
+        int(flat.size),
+        m,
+        ", ".join(str(c) for c in numbers),
+    )
     rows, centroids_at = [], {}
     for c in numbers:
-        partition = _solve_at(changing, c, m, scan, rng=np.random.default_rng([int(seed), 7, c]))
+        started = time.perf_counter()
+        with about(f"comparison c = {c}"):
+            partition = _solve_at(
+                changing, c, m, scan, rng=np.random.default_rng([int(seed), 7, c])
+            )
         rows.append(partition.metrics)
         centroids_at[c] = partition.centroids
+        _log.info(
+            "comparison c = %d: %d starts, %d at the best objective; %.1f s",
+            c,
+            partition.metrics["n_starts"],
+            partition.metrics["n_at_optimum"],
+            time.perf_counter() - started,
+        )
     structure, judged = _structure_and_judgement(
         changing, m, pd.DataFrame(rows), selection, rng=np.random.default_rng([int(seed), 8])
     )
+    _log_judgement(structure, judged, selection)
     chosen = recommended_n_clusters(judged)
     judged["used"] = judged["n_clusters"] == chosen
     write_table(judged, out / "validity.tsv")

@@ -10,6 +10,8 @@ import sys
 from snakemake.exceptions import WorkflowError
 
 from gloam.errors import GloamError
+from gloam.artifacts import FIGURES as ARTIFACT_FIGURES
+from gloam.artifacts import figure_files
 from gloam.planning import RUN_ID_PATTERN, make_plan
 
 
@@ -80,6 +82,24 @@ def shared_inputs(stage):
         return PLAN.shared_files(wildcards.run, stage)
 
     return inputs
+
+
+def figure_outputs(writer):
+    """Output files of the figures that rule ``writer`` draws (gloam.artifacts.FIGURES),
+    named ``<figure>_<format>``; the PNG goes into Snakemake's report with its caption."""
+    outputs = {}
+    for name, relative in figure_files(writer).items():
+        path = run_path("{run}", relative)
+        if name.endswith("_png"):
+            figure = ARTIFACT_FIGURES[name[: -len("_png")]]
+            path = report(
+                path,
+                caption=f"../report/{figure.name}.rst",
+                category="{run}",
+                subcategory=figure.section,
+            )
+        outputs[name] = path
+    return outputs
 
 
 @per_job

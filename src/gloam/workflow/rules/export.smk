@@ -32,30 +32,7 @@ rule export:
         ),
         robustness=run_path("{run}", "robustness.tsv"),
         h5ad=run_path("{run}", "gloam.h5ad"),
-        validity_png=report(
-            run_path("{run}", "figures/validity.png"),
-            caption="../report/validity.rst",
-            category="{run}",
-            subcategory="3 number of clusters",
-        ),
-        validity_pdf=run_path("{run}", "figures/validity.pdf"),
-        validity_svg=run_path("{run}", "figures/validity.svg"),
-        fuzzifier_png=report(
-            run_path("{run}", "figures/fuzzifier.png"),
-            caption="../report/fuzzifier.rst",
-            category="{run}",
-            subcategory="2 fuzzifier",
-        ),
-        fuzzifier_pdf=run_path("{run}", "figures/fuzzifier.pdf"),
-        fuzzifier_svg=run_path("{run}", "figures/fuzzifier.svg"),
-        overview_png=report(
-            run_path("{run}", "figures/overview.png"),
-            caption="../report/overview.rst",
-            category="{run}",
-            subcategory="4 clusters",
-        ),
-        overview_pdf=run_path("{run}", "figures/overview.pdf"),
-        overview_svg=run_path("{run}", "figures/overview.svg"),
+        **figure_outputs("export"),
     params:
         settings=get_run_settings,
     log:
@@ -89,14 +66,7 @@ rule core_genes:
             category="{run}",
             subcategory="5 gene sets",
         ),
-        profiles_png=report(
-            run_path("{run}", "figures/profiles.png"),
-            caption="../report/profiles.rst",
-            category="{run}",
-            subcategory="4 clusters",
-        ),
-        profiles_pdf=run_path("{run}", "figures/profiles.pdf"),
-        profiles_svg=run_path("{run}", "figures/profiles.svg"),
+        **figure_outputs("core_genes"),
     params:
         thresholds=SETTINGS["genesets"]["thresholds"],
         time_unit=get_time_unit,

@@ -12,6 +12,7 @@ rule summary:
             category="Summary",
         ),
         sensitivity=PLAN.sensitivity_path(),
+        matches=PLAN.matches_path(),
     params:
         runs=PLAN.summary_runs(),
         thresholds=SETTINGS["genesets"]["thresholds"],

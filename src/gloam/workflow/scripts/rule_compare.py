@@ -17,23 +17,20 @@ signal.signal(
 # comes first: never another gloam that the job's environment may hold.
 sys.path.insert(0, str(Path(job.scriptdir).resolve().parents[2]))
 
-from gloam.errors import exit_on_user_error
 from gloam.stages import rule_environment, run_comparison
 
 settings = job.params.settings
 
-with rule_environment(job.log[0], job.threads):
-    exit_on_user_error(
-        lambda: run_comparison(
-            job.input.prepared,
-            job.input.gene_report,
-            settings["scan"],
-            settings["selection"],
-            settings["cluster_numbers"],
-            job.params.seed,
-            fdr=settings["fdr"],
-            min_log2_range=settings["min_log2_range"],
-            prefix=settings["prefix"],
-            out_dir=job.output.comparison,
-        )
+with rule_environment(job.log[0], job.threads, inputs=job.input, outputs=job.output):
+    run_comparison(
+        job.input.prepared,
+        job.input.gene_report,
+        settings["scan"],
+        settings["selection"],
+        settings["cluster_numbers"],
+        job.params.seed,
+        fdr=settings["fdr"],
+        min_log2_range=settings["min_log2_range"],
+        prefix=settings["prefix"],
+        out_dir=job.output.comparison,
     )

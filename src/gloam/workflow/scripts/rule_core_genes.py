@@ -17,20 +17,18 @@ signal.signal(
 # comes first: never another gloam that the job's environment may hold.
 sys.path.insert(0, str(Path(job.scriptdir).resolve().parents[2]))
 
-from gloam.errors import exit_on_user_error
+from gloam.artifacts import figure_paths
 from gloam.stages import export_core_genes, rule_environment
 
 out = job.output
 
-with rule_environment(job.log[0], job.threads):
-    exit_on_user_error(
-        lambda: export_core_genes(
-            job.input.prepared,
-            job.input.consensus,
-            job.params.thresholds,
-            job.params.time_unit,
-            genesets=out.genesets,
-            profiles_figure=(out.profiles_png, out.profiles_pdf, out.profiles_svg),
-            prefix=job.wildcards.run,
-        )
+with rule_environment(job.log[0], job.threads, inputs=job.input, outputs=job.output):
+    export_core_genes(
+        job.input.prepared,
+        job.input.consensus,
+        job.params.thresholds,
+        job.params.time_unit,
+        genesets=out.genesets,
+        figures=figure_paths("core_genes", out),
+        prefix=job.wildcards.run,
     )

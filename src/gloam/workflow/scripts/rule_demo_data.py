@@ -17,18 +17,15 @@ signal.signal(
 # comes first: never another gloam that the job's environment may hold.
 sys.path.insert(0, str(Path(job.scriptdir).resolve().parents[2]))
 
-from gloam.errors import exit_on_user_error
 from gloam.stages import rule_environment, run_demo
 
-with rule_environment(job.log[0], job.threads):
-    exit_on_user_error(
-        lambda: run_demo(
-            job.output.counts,
-            job.output.samples,
-            job.output.truth,
-            seed=job.params.seed,
-            n_genes=job.params.n_genes,
-            n_replicates=job.params.n_replicates,
-            with_mutant=job.params.mutant,
-        )
+with rule_environment(job.log[0], job.threads, inputs=job.input, outputs=job.output):
+    run_demo(
+        job.output.counts,
+        job.output.samples,
+        job.output.truth,
+        seed=job.params.seed,
+        n_genes=job.params.n_genes,
+        n_replicates=job.params.n_replicates,
+        with_mutant=job.params.mutant,
     )

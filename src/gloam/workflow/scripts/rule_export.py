@@ -17,28 +17,24 @@ signal.signal(
 # comes first: never another gloam that the job's environment may hold.
 sys.path.insert(0, str(Path(job.scriptdir).resolve().parents[2]))
 
-from gloam.errors import exit_on_user_error
+from gloam.artifacts import figure_paths
 from gloam.stages import export_results, rule_environment
 
 out = job.output
 
-with rule_environment(job.log[0], job.threads):
-    exit_on_user_error(
-        lambda: export_results(
-            job.input.prepared,
-            job.input.consensus,
-            job.input.fuzzifier,
-            job.input.fuzzifier_curve,
-            job.input.selection,
-            job.input.validity,
-            job.params.settings,
-            memberships=out.memberships,
-            centroids=out.centroids,
-            clusters=out.clusters,
-            robustness=out.robustness,
-            h5ad=out.h5ad,
-            validity_figure=(out.validity_png, out.validity_pdf, out.validity_svg),
-            fuzzifier_figure=(out.fuzzifier_png, out.fuzzifier_pdf, out.fuzzifier_svg),
-            overview_figure=(out.overview_png, out.overview_pdf, out.overview_svg),
-        )
+with rule_environment(job.log[0], job.threads, inputs=job.input, outputs=job.output):
+    export_results(
+        job.input.prepared,
+        job.input.consensus,
+        job.input.fuzzifier,
+        job.input.fuzzifier_curve,
+        job.input.selection,
+        job.input.validity,
+        job.params.settings,
+        memberships=out.memberships,
+        centroids=out.centroids,
+        clusters=out.clusters,
+        robustness=out.robustness,
+        h5ad=out.h5ad,
+        figures=figure_paths("export", out),
     )

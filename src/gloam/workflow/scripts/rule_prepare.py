@@ -19,7 +19,6 @@ signal.signal(
 # comes first: never another gloam that the job's environment may hold.
 sys.path.insert(0, str(Path(job.scriptdir).resolve().parents[2]))
 
-from gloam.errors import exit_on_user_error
 from gloam.stages import (
     rule_environment,
     run_prepare,
@@ -27,8 +26,7 @@ from gloam.stages import (
     write_scan_input,
 )
 
-
-def prepare_and_choose_m() -> None:
+with rule_environment(job.log[0], job.threads, inputs=job.input, outputs=job.output):
     # m is chosen from the z-scores just prepared, not from the file read back.
     prepared = run_prepare(
         job.input.matrix,
@@ -55,7 +53,3 @@ def prepare_and_choose_m() -> None:
         samples=prepared.samples,
         selection_method=prepared.selection_method,
     )
-
-
-with rule_environment(job.log[0], job.threads):
-    exit_on_user_error(prepare_and_choose_m)

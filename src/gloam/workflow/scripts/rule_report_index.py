@@ -17,11 +17,8 @@ signal.signal(
 # comes first: never another gloam that the job's environment may hold.
 sys.path.insert(0, str(Path(job.scriptdir).resolve().parents[2]))
 
-from gloam.errors import exit_on_user_error
 from gloam.report import write_index_page
 from gloam.stages import rule_environment
 
-with rule_environment(job.log[0], job.threads):
-    exit_on_user_error(
-        lambda: write_index_page(dict(job.params.pages), job.input.summary, job.output.index)
-    )
+with rule_environment(job.log[0], job.threads, inputs=job.input, outputs=job.output):
+    write_index_page(dict(job.params.pages), job.input.summary, job.output.index)

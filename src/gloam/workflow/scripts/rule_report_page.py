@@ -17,16 +17,13 @@ signal.signal(
 # comes first: never another gloam that the job's environment may hold.
 sys.path.insert(0, str(Path(job.scriptdir).resolve().parents[2]))
 
-from gloam.errors import exit_on_user_error
 from gloam.report import write_run_page
 from gloam.stages import rule_environment
 
-with rule_environment(job.log[0], job.threads):
-    exit_on_user_error(
-        lambda: write_run_page(
-            job.params.run_dir,
-            job.output.page,
-            run_name=job.wildcards.run,
-            settings=job.params.settings,
-        )
+with rule_environment(job.log[0], job.threads, inputs=job.input, outputs=job.output):
+    write_run_page(
+        job.params.run_dir,
+        job.output.page,
+        run_name=job.wildcards.run,
+        settings=job.params.settings,
     )

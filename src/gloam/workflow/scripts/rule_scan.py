@@ -17,16 +17,13 @@ signal.signal(
 # comes first: never another gloam that the job's environment may hold.
 sys.path.insert(0, str(Path(job.scriptdir).resolve().parents[2]))
 
-from gloam.errors import exit_on_user_error
 from gloam.stages import rule_environment, run_scan
 
-with rule_environment(job.log[0], job.threads):
-    exit_on_user_error(
-        lambda: run_scan(
-            job.input.scan_input,
-            int(job.wildcards.c),
-            job.params.settings,
-            job.params.seed,
-            job.output.scan,
-        )
+with rule_environment(job.log[0], job.threads, inputs=job.input, outputs=job.output):
+    run_scan(
+        job.input.scan_input,
+        int(job.wildcards.c),
+        job.params.settings,
+        job.params.seed,
+        job.output.scan,
     )

@@ -18,19 +18,16 @@ signal.signal(
 # comes first: never another gloam that the job's environment may hold.
 sys.path.insert(0, str(Path(job.scriptdir).resolve().parents[2]))
 
-from gloam.errors import exit_on_user_error
 from gloam.stages import rule_environment, run_select
 
-with rule_environment(job.log[0], job.threads):
-    exit_on_user_error(
-        lambda: run_select(
-            job.input.scan_input,
-            job.input.fuzzifier,
-            list(job.input.scans),
-            job.params.settings,
-            job.params.seed,
-            out_validity=job.output.validity,
-            out_selection=job.output.selection,
-            out_consensus=job.output.consensus,
-        )
+with rule_environment(job.log[0], job.threads, inputs=job.input, outputs=job.output):
+    run_select(
+        job.input.scan_input,
+        job.input.fuzzifier,
+        list(job.input.scans),
+        job.params.settings,
+        job.params.seed,
+        out_validity=job.output.validity,
+        out_selection=job.output.selection,
+        out_consensus=job.output.consensus,
     )

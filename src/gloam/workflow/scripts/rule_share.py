@@ -10,8 +10,7 @@ job = snakemake  # noqa: F821 -- injected by Snakemake's script directive
 sys.path.insert(0, str(Path(job.scriptdir).resolve().parents[2]))
 
 from gloam.artifacts import link_shared
-from gloam.errors import exit_on_user_error
 from gloam.stages import rule_environment
 
-with rule_environment(job.log[0], job.threads):
-    exit_on_user_error(lambda: link_shared(dict(job.input.items()), dict(job.output.items())))
+with rule_environment(job.log[0], job.threads, inputs=job.input, outputs=job.output):
+    link_shared(dict(job.input.items()), dict(job.output.items()))

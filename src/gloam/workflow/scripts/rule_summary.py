@@ -17,22 +17,21 @@ signal.signal(
 # comes first: never another gloam that the job's environment may hold.
 sys.path.insert(0, str(Path(job.scriptdir).resolve().parents[2]))
 
-from gloam.errors import exit_on_user_error
-from gloam.stages import rule_environment, summarise_runs, summarise_sensitivity
+from gloam.stages import (
+    rule_environment,
+    summarise_matches,
+    summarise_runs,
+    summarise_sensitivity,
+)
 
-with rule_environment(job.log[0], job.threads):
-    exit_on_user_error(
-        lambda: summarise_runs(
-            job.params.runs,
-            list(job.input.fuzzifier),
-            list(job.input.selection),
-            list(job.input.consensus),
-            job.params.thresholds,
-            job.output.summary,
-        )
+with rule_environment(job.log[0], job.threads, inputs=job.input, outputs=job.output):
+    summarise_runs(
+        job.params.runs,
+        list(job.input.fuzzifier),
+        list(job.input.selection),
+        list(job.input.consensus),
+        job.params.thresholds,
+        job.output.summary,
     )
-    exit_on_user_error(
-        lambda: summarise_sensitivity(
-            job.params.runs, list(job.input.consensus), job.output.sensitivity
-        )
-    )
+    summarise_sensitivity(job.params.runs, list(job.input.consensus), job.output.sensitivity)
+    summarise_matches(job.params.runs, list(job.input.consensus), job.output.matches)
