@@ -480,3 +480,21 @@ def test_the_time_unit_belongs_to_the_dataset(tmp_path):
     assert plan.run_settings("min_data")["time_unit"] == "min"
     # An empty cell falls back to the config's unit (the schema's documented default rule).
     assert plan.run_settings("day_data")["time_unit"] == "d"
+
+
+def test_planning_needs_neither_numpy_nor_pandas(tmp_path):
+    """The controlling Snakemake plans with gloam.planning (and gloam.artifacts): a bare
+    controller environment needs only Snakemake and PyYAML (common practice: keep the
+    controller light). A fresh interpreter shows what planning imports."""
+    import subprocess
+    import sys
+
+    code = (
+        "import sys; from gloam.planning import make_plan; "
+        "make_plan({'genesets': {'thresholds': [0.5, 0.7]}, 'variants': {'a': {}, 'b': {}}}); "
+        "print(sorted(m for m in ('numpy', 'pandas', 'scipy', 'anndata') if m in sys.modules))"
+    )
+    result = subprocess.run(
+        [sys.executable, "-c", code], cwd=tmp_path, capture_output=True, text=True, check=True
+    )
+    assert result.stdout.strip() == "[]"

@@ -307,7 +307,7 @@ def _fuzzifier_setting(text: str) -> str | float:
 
 def _threshold_list(text: str) -> list[float]:
     """``--thresholds``: comma-separated core membership thresholds, each in (0, 1]."""
-    from gloam.genesets import check_thresholds
+    from gloam.schema import check_thresholds
 
     try:
         thresholds = [float(value) for value in text.split(",") if value.strip()]

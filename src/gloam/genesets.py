@@ -30,7 +30,6 @@ Files written by :func:`write_gene_sets` into ``out_dir`` (``<t>`` formatted wit
 
 from __future__ import annotations
 
-import math
 import os
 import re
 from collections.abc import Iterable, Sequence
@@ -41,6 +40,7 @@ import pandas as pd
 
 from gloam.errors import GloamError
 from gloam.io import write_gmt, write_lines, write_table
+from gloam.schema import check_thresholds
 
 __all__ = [
     "check_thresholds",
@@ -60,54 +60,6 @@ RANKED_COLUMNS = ("gene", "membership")
 _SAFE_NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]*$")
 # Memberships are computed in floating point; allow rounding just outside [0, 1].
 _MEMBERSHIP_SLACK = 1e-9
-
-
-def check_thresholds(thresholds: Iterable[float]) -> tuple[float, ...]:
-    """Validate core-membership thresholds.
-
-    Parameters
-    ----------
-    thresholds : iterable of float
-        Each in (0, 1]; at least one; no repeats, also not within 6 significant digits
-        (the precision of the labels in file names).
-
-    Returns
-    -------
-    tuple of float
-        The thresholds in the order given.
-
-    Raises
-    ------
-    GloamError
-        If there are none, one is not a number in (0, 1], or one repeats (to 6 significant
-        digits).
-    """
-    if isinstance(thresholds, str | bytes):
-        raise GloamError(f"core thresholds must be numbers in (0, 1]; got {thresholds!r}")
-    values = []
-    for value in thresholds:
-        if isinstance(value, bool) or not isinstance(value, int | float | np.number):
-            raise GloamError(f"core threshold {value!r} is not a number; use values in (0, 1]")
-        value = float(value)
-        if not (math.isfinite(value) and 0 < value <= 1):
-            raise GloamError(
-                f"core threshold {value:g} is outside (0, 1]; a core gene needs a membership of "
-                "at least the threshold, so use e.g. 0.5 or 0.7"
-            )
-        if value in values:
-            raise GloamError(f"core threshold {value:g} is given twice; list each once")
-        # File names and summary columns carry the threshold as {value:g} (6 significant
-        # digits): two thresholds with one label would write to the same files.
-        twin = next((other for other in values if f"{other:g}" == f"{value:g}"), None)
-        if twin is not None:
-            raise GloamError(
-                f"core thresholds {twin!r} and {value!r} both appear as {value:g} in file names; "
-                "give thresholds that differ within 6 significant digits"
-            )
-        values.append(value)
-    if not values:
-        raise GloamError("no core thresholds given; give at least one, e.g. 0.7")
-    return tuple(values)
 
 
 def _check_memberships(memberships: pd.DataFrame) -> pd.DataFrame:

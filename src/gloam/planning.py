@@ -228,7 +228,7 @@ def validated_config(config: Mapping[str, Any]) -> dict[str, Any]:
     GloamError
         Naming the key, the value and what the key accepts.
     """
-    from gloam.genesets import check_thresholds
+    from gloam.schema import check_thresholds
 
     if not isinstance(config, Mapping):
         raise GloamError(f"config must be a mapping of keys, not {type(config).__name__}")

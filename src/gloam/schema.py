@@ -9,16 +9,28 @@ the range of numbers the code can use).
 A JSON Schema ``number`` admits NaN and infinities when the document comes from YAML
 (``.nan``, ``.inf``), and no bound can refuse NaN (every comparison with it is false). Here a
 ``number`` is a finite one, so ``scan.tol: .nan`` is refused like any other bad value.
+
+It also holds the checks a schema cannot express (:func:`check_thresholds`). Planning imports
+this module on the controlling machine, so it needs neither NumPy nor pandas.
 """
 
 from __future__ import annotations
 
 import copy
 import math
-from collections.abc import Mapping, Sequence
+import numbers
+from collections.abc import Iterable, Mapping, Sequence
 from typing import Any
 
-__all__ = ["describe_schema_violation", "key_path", "fill_defaults", "validator_class"]
+from gloam.errors import GloamError
+
+__all__ = [
+    "describe_schema_violation",
+    "key_path",
+    "fill_defaults",
+    "validator_class",
+    "check_thresholds",
+]
 
 
 def key_path(path: Sequence[Any]) -> str:
@@ -182,3 +194,51 @@ def describe_schema_violation(
         accepts = _description(_schema_of(path[:-1], schema))
     where = f" key {key_path(path)}" if path else ""
     return f"{name}{where}: {error.message}" + (f"; allowed: {accepts}" if accepts else "")
+
+
+def check_thresholds(thresholds: Iterable[float]) -> tuple[float, ...]:
+    """Validate core-membership thresholds.
+
+    Parameters
+    ----------
+    thresholds : iterable of float
+        Each in (0, 1]; at least one; no repeats, also not within 6 significant digits
+        (the precision of the labels in file names).
+
+    Returns
+    -------
+    tuple of float
+        The thresholds in the order given.
+
+    Raises
+    ------
+    GloamError
+        If there are none, one is not a number in (0, 1], or one repeats (to 6 significant
+        digits).
+    """
+    if isinstance(thresholds, str | bytes):
+        raise GloamError(f"core thresholds must be numbers in (0, 1]; got {thresholds!r}")
+    values = []
+    for value in thresholds:
+        if isinstance(value, bool) or not isinstance(value, numbers.Real):
+            raise GloamError(f"core threshold {value!r} is not a number; use values in (0, 1]")
+        value = float(value)
+        if not (math.isfinite(value) and 0 < value <= 1):
+            raise GloamError(
+                f"core threshold {value:g} is outside (0, 1]; a core gene needs a membership of "
+                "at least the threshold, so use e.g. 0.5 or 0.7"
+            )
+        if value in values:
+            raise GloamError(f"core threshold {value:g} is given twice; list each once")
+        # File names and summary columns carry the threshold as {value:g} (6 significant
+        # digits): two thresholds with one label would write to the same files.
+        twin = next((other for other in values if f"{other:g}" == f"{value:g}"), None)
+        if twin is not None:
+            raise GloamError(
+                f"core thresholds {twin!r} and {value!r} both appear as {value:g} in file names; "
+                "give thresholds that differ within 6 significant digits"
+            )
+        values.append(value)
+    if not values:
+        raise GloamError("no core thresholds given; give at least one, e.g. 0.7")
+    return tuple(values)
