@@ -21,16 +21,21 @@ from gloam.stages import rule_environment, run_comparison
 
 settings = job.params.settings
 
-with rule_environment(job.log[0], job.threads, inputs=job.input, outputs=job.output):
-    run_comparison(
-        job.input.prepared,
-        job.input.gene_report,
-        settings["scan"],
-        settings["selection"],
-        settings["cluster_numbers"],
-        job.params.seed,
-        fdr=settings["fdr"],
-        min_log2_range=settings["min_log2_range"],
-        prefix=settings["prefix"],
-        out_dir=job.output.comparison,
-    )
+try:
+    with rule_environment(job.log[0], job.threads, inputs=job.input, outputs=job.output):
+        run_comparison(
+            job.input.prepared,
+            job.input.gene_report,
+            settings["scan"],
+            settings["selection"],
+            settings["cluster_numbers"],
+            job.params.seed,
+            fdr=settings["fdr"],
+            min_log2_range=settings["min_log2_range"],
+            prefix=settings["prefix"],
+            out_dir=job.output.comparison,
+        )
+finally:
+    # Done, or failed with its message: an interrupt during the exit that follows would print
+    # a traceback from the handler above, so from here on it is ignored.
+    signal.signal(signal.SIGINT, signal.SIG_IGN)

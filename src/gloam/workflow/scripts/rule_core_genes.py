@@ -22,13 +22,18 @@ from gloam.stages import export_core_genes, rule_environment
 
 out = job.output
 
-with rule_environment(job.log[0], job.threads, inputs=job.input, outputs=job.output):
-    export_core_genes(
-        job.input.prepared,
-        job.input.consensus,
-        job.params.thresholds,
-        job.params.time_unit,
-        genesets=out.genesets,
-        figures=figure_paths("core_genes", out),
-        prefix=job.wildcards.run,
-    )
+try:
+    with rule_environment(job.log[0], job.threads, inputs=job.input, outputs=job.output):
+        export_core_genes(
+            job.input.prepared,
+            job.input.consensus,
+            job.params.thresholds,
+            job.params.time_unit,
+            genesets=out.genesets,
+            figures=figure_paths("core_genes", out),
+            prefix=job.wildcards.run,
+        )
+finally:
+    # Done, or failed with its message: an interrupt during the exit that follows would print
+    # a traceback from the handler above, so from here on it is ignored.
+    signal.signal(signal.SIGINT, signal.SIG_IGN)

@@ -19,13 +19,18 @@ sys.path.insert(0, str(Path(job.scriptdir).resolve().parents[2]))
 
 from gloam.stages import rule_environment, run_demo
 
-with rule_environment(job.log[0], job.threads, inputs=job.input, outputs=job.output):
-    run_demo(
-        job.output.counts,
-        job.output.samples,
-        job.output.truth,
-        seed=job.params.seed,
-        n_genes=job.params.n_genes,
-        n_replicates=job.params.n_replicates,
-        with_mutant=job.params.mutant,
-    )
+try:
+    with rule_environment(job.log[0], job.threads, inputs=job.input, outputs=job.output):
+        run_demo(
+            job.output.counts,
+            job.output.samples,
+            job.output.truth,
+            seed=job.params.seed,
+            n_genes=job.params.n_genes,
+            n_replicates=job.params.n_replicates,
+            with_mutant=job.params.mutant,
+        )
+finally:
+    # Done, or failed with its message: an interrupt during the exit that follows would print
+    # a traceback from the handler above, so from here on it is ignored.
+    signal.signal(signal.SIGINT, signal.SIG_IGN)

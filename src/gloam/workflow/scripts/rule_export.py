@@ -22,19 +22,24 @@ from gloam.stages import export_results, rule_environment
 
 out = job.output
 
-with rule_environment(job.log[0], job.threads, inputs=job.input, outputs=job.output):
-    export_results(
-        job.input.prepared,
-        job.input.consensus,
-        job.input.fuzzifier,
-        job.input.fuzzifier_curve,
-        job.input.selection,
-        job.input.validity,
-        job.params.settings,
-        memberships=out.memberships,
-        centroids=out.centroids,
-        clusters=out.clusters,
-        robustness=out.robustness,
-        h5ad=out.h5ad,
-        figures=figure_paths("export", out),
-    )
+try:
+    with rule_environment(job.log[0], job.threads, inputs=job.input, outputs=job.output):
+        export_results(
+            job.input.prepared,
+            job.input.consensus,
+            job.input.fuzzifier,
+            job.input.fuzzifier_curve,
+            job.input.selection,
+            job.input.validity,
+            job.params.settings,
+            memberships=out.memberships,
+            centroids=out.centroids,
+            clusters=out.clusters,
+            robustness=out.robustness,
+            h5ad=out.h5ad,
+            figures=figure_paths("export", out),
+        )
+finally:
+    # Done, or failed with its message: an interrupt during the exit that follows would print
+    # a traceback from the handler above, so from here on it is ignored.
+    signal.signal(signal.SIGINT, signal.SIG_IGN)

@@ -26,30 +26,35 @@ from gloam.stages import (
     write_scan_input,
 )
 
-with rule_environment(job.log[0], job.threads, inputs=job.input, outputs=job.output):
-    # m is chosen from the z-scores just prepared, not from the file read back.
-    prepared = run_prepare(
-        job.input.matrix,
-        job.input.samples,
-        job.params.settings,
-        h5ad=job.output.h5ad,
-        zscores=job.output.zscores,
-        gene_report=job.output.gene_report,
-        summary=job.output.summary,
-    )
-    m = write_fuzzifier_choice(
-        prepared.zscores,
-        job.params.fuzzifier,
-        job.params.seed,
-        job.output.fuzzifier,
-        job.output.fuzzifier_curve,
-    )
-    write_scan_input(
-        prepared.zscores,
-        m,
-        job.output.scan_input,
-        columns=prepared.columns,
-        replicates=prepared.replicates,
-        samples=prepared.samples,
-        selection_method=prepared.selection_method,
-    )
+try:
+    with rule_environment(job.log[0], job.threads, inputs=job.input, outputs=job.output):
+        # m is chosen from the z-scores just prepared, not from the file read back.
+        prepared = run_prepare(
+            job.input.matrix,
+            job.input.samples,
+            job.params.settings,
+            h5ad=job.output.h5ad,
+            zscores=job.output.zscores,
+            gene_report=job.output.gene_report,
+            summary=job.output.summary,
+        )
+        m = write_fuzzifier_choice(
+            prepared.zscores,
+            job.params.fuzzifier,
+            job.params.seed,
+            job.output.fuzzifier,
+            job.output.fuzzifier_curve,
+        )
+        write_scan_input(
+            prepared.zscores,
+            m,
+            job.output.scan_input,
+            columns=prepared.columns,
+            replicates=prepared.replicates,
+            samples=prepared.samples,
+            selection_method=prepared.selection_method,
+        )
+finally:
+    # Done, or failed with its message: an interrupt during the exit that follows would print
+    # a traceback from the handler above, so from here on it is ignored.
+    signal.signal(signal.SIGINT, signal.SIG_IGN)

@@ -20,5 +20,10 @@ sys.path.insert(0, str(Path(job.scriptdir).resolve().parents[2]))
 from gloam.report import write_index_page
 from gloam.stages import rule_environment
 
-with rule_environment(job.log[0], job.threads, inputs=job.input, outputs=job.output):
-    write_index_page(dict(job.params.pages), job.input.summary, job.output.index)
+try:
+    with rule_environment(job.log[0], job.threads, inputs=job.input, outputs=job.output):
+        write_index_page(dict(job.params.pages), job.input.summary, job.output.index)
+finally:
+    # Done, or failed with its message: an interrupt during the exit that follows would print
+    # a traceback from the handler above, so from here on it is ignored.
+    signal.signal(signal.SIGINT, signal.SIG_IGN)

@@ -20,10 +20,15 @@ sys.path.insert(0, str(Path(job.scriptdir).resolve().parents[2]))
 from gloam.report import write_run_page
 from gloam.stages import rule_environment
 
-with rule_environment(job.log[0], job.threads, inputs=job.input, outputs=job.output):
-    write_run_page(
-        job.params.run_dir,
-        job.output.page,
-        run_name=job.wildcards.run,
-        settings=job.params.settings,
-    )
+try:
+    with rule_environment(job.log[0], job.threads, inputs=job.input, outputs=job.output):
+        write_run_page(
+            job.params.run_dir,
+            job.output.page,
+            run_name=job.wildcards.run,
+            settings=job.params.settings,
+        )
+finally:
+    # Done, or failed with its message: an interrupt during the exit that follows would print
+    # a traceback from the handler above, so from here on it is ignored.
+    signal.signal(signal.SIGINT, signal.SIG_IGN)

@@ -19,11 +19,16 @@ sys.path.insert(0, str(Path(job.scriptdir).resolve().parents[2]))
 
 from gloam.stages import rule_environment, run_scan
 
-with rule_environment(job.log[0], job.threads, inputs=job.input, outputs=job.output):
-    run_scan(
-        job.input.scan_input,
-        int(job.wildcards.c),
-        job.params.settings,
-        job.params.seed,
-        job.output.scan,
-    )
+try:
+    with rule_environment(job.log[0], job.threads, inputs=job.input, outputs=job.output):
+        run_scan(
+            job.input.scan_input,
+            int(job.wildcards.c),
+            job.params.settings,
+            job.params.seed,
+            job.output.scan,
+        )
+finally:
+    # Done, or failed with its message: an interrupt during the exit that follows would print
+    # a traceback from the handler above, so from here on it is ignored.
+    signal.signal(signal.SIGINT, signal.SIG_IGN)

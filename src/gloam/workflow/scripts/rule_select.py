@@ -20,14 +20,19 @@ sys.path.insert(0, str(Path(job.scriptdir).resolve().parents[2]))
 
 from gloam.stages import rule_environment, run_select
 
-with rule_environment(job.log[0], job.threads, inputs=job.input, outputs=job.output):
-    run_select(
-        job.input.scan_input,
-        job.input.fuzzifier,
-        list(job.input.scans),
-        job.params.settings,
-        job.params.seed,
-        out_validity=job.output.validity,
-        out_selection=job.output.selection,
-        out_consensus=job.output.consensus,
-    )
+try:
+    with rule_environment(job.log[0], job.threads, inputs=job.input, outputs=job.output):
+        run_select(
+            job.input.scan_input,
+            job.input.fuzzifier,
+            list(job.input.scans),
+            job.params.settings,
+            job.params.seed,
+            out_validity=job.output.validity,
+            out_selection=job.output.selection,
+            out_consensus=job.output.consensus,
+        )
+finally:
+    # Done, or failed with its message: an interrupt during the exit that follows would print
+    # a traceback from the handler above, so from here on it is ignored.
+    signal.signal(signal.SIGINT, signal.SIG_IGN)

@@ -24,14 +24,19 @@ from gloam.stages import (
     summarise_sensitivity,
 )
 
-with rule_environment(job.log[0], job.threads, inputs=job.input, outputs=job.output):
-    summarise_runs(
-        job.params.runs,
-        list(job.input.fuzzifier),
-        list(job.input.selection),
-        list(job.input.consensus),
-        job.params.thresholds,
-        job.output.summary,
-    )
-    summarise_sensitivity(job.params.runs, list(job.input.consensus), job.output.sensitivity)
-    summarise_matches(job.params.runs, list(job.input.consensus), job.output.matches)
+try:
+    with rule_environment(job.log[0], job.threads, inputs=job.input, outputs=job.output):
+        summarise_runs(
+            job.params.runs,
+            list(job.input.fuzzifier),
+            list(job.input.selection),
+            list(job.input.consensus),
+            job.params.thresholds,
+            job.output.summary,
+        )
+        summarise_sensitivity(job.params.runs, list(job.input.consensus), job.output.sensitivity)
+        summarise_matches(job.params.runs, list(job.input.consensus), job.output.matches)
+finally:
+    # Done, or failed with its message: an interrupt during the exit that follows would print
+    # a traceback from the handler above, so from here on it is ignored.
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
