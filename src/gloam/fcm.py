@@ -1251,10 +1251,7 @@ def warm_start_cmeans(
     centroids = noise_module._check_centroids(initial_centroids, X.shape[1])
     m = noise_module._check_m(m)
     delta2 = noise_module._check_noise_distance(noise_distance)
-    if not (isinstance(tol, int | float | np.floating) and math.isfinite(tol) and tol >= 0):
-        raise GloamError(f"tol must be a finite number >= 0; got {tol!r}")
-    if isinstance(max_iter, bool) or not isinstance(max_iter, int | np.integer) or max_iter < 1:
-        raise GloamError(f"max_iter must be an integer >= 1; got {max_iter!r}")
+    noise_module._check_stopping(tol, max_iter)
     _check_acceleration(acceleration)
     if precision not in _ELEMENTWISE_DTYPES:
         raise GloamError(

@@ -131,6 +131,16 @@ def _check_m(m: float) -> float:
     return float(m)
 
 
+def _check_stopping(tol: float, max_iter: int) -> None:
+    """``tol`` a finite number >= 0 and ``max_iter`` an integer >= 1 (neither a bool)."""
+    if isinstance(tol, bool) or not (
+        isinstance(tol, int | float | np.integer | np.floating) and math.isfinite(tol) and tol >= 0
+    ):
+        raise GloamError(f"tol must be a finite number >= 0; got {tol!r}")
+    if isinstance(max_iter, bool) or not isinstance(max_iter, int | np.integer) or max_iter < 1:
+        raise GloamError(f"max_iter must be an integer >= 1; got {max_iter!r}")
+
+
 def _check_noise_distance(value: float) -> float:
     if isinstance(value, bool) or not (
         isinstance(value, int | float | np.integer | np.floating) and value > 0
@@ -375,12 +385,7 @@ def noise_cmeans(
     centroids = _check_centroids(initial_centroids, X.shape[1])
     m = _check_m(m)
     delta2 = _check_noise_distance(noise_distance)
-    if isinstance(tol, bool) or not (
-        isinstance(tol, int | float | np.integer | np.floating) and math.isfinite(tol) and tol >= 0
-    ):
-        raise GloamError(f"tol must be a finite number >= 0; got {tol!r}")
-    if isinstance(max_iter, bool) or not isinstance(max_iter, int | np.integer) or max_iter < 1:
-        raise GloamError(f"max_iter must be an integer >= 1; got {max_iter!r}")
+    _check_stopping(tol, max_iter)
     partition = _run(X, centroids, m, delta2, float(tol), int(max_iter))
     if tol > 0 and not partition.converged:
         warnings.warn(
