@@ -9,6 +9,9 @@ reference), alternating, and prints:
 * wall time of the whole run and its ratio to the reference;
 * the longest jobs (Snakemake's ``benchmarks/`` records: wall seconds and peak RSS);
 * the peak memory of any one job;
+* the longest chain of jobs (prepare, the longest scan or structure job, then the longer of
+  select -> export/core_genes and compare, then the report page): the wall time the run
+  would take with a core for every job, computed from the job records, not measured;
 * disk use of the results per run, split into the scan files and the rest;
 * the chosen c and m of each setting (they must agree).
 
@@ -63,6 +66,24 @@ def job_table(folder: Path) -> pd.DataFrame:
     return pd.DataFrame(rows)
 
 
+def longest_chain(jobs: pd.DataFrame) -> float:
+    """Seconds of the run's longest chain of dependent jobs (the workflow's DAG for one run:
+    prepare -> scans and structure -> select -> export and core_genes, and compare -> report
+    page), from the job records."""
+    seconds = dict(zip(jobs["job"].str.split("/").str[-1], jobs["seconds"], strict=True))
+    scans = max(value for name, value in seconds.items() if name.startswith("scan_c"))
+    middle = max(scans, seconds.get("structure", 0.0))
+    finish = seconds.get("select", 0.0) + max(
+        seconds.get("export", 0.0), seconds.get("core_genes", 0.0)
+    )
+    return (
+        seconds["prepare"]
+        + middle
+        + max(finish, seconds.get("compare", 0.0))
+        + seconds.get("report_page", 0.0)
+    )
+
+
 def disk_mb(path: Path) -> float:
     """Bytes of the files under ``path`` (hard links counted once), in MB."""
     seen, total = set(), 0
@@ -107,16 +128,17 @@ def main() -> None:
     print(f"demo with {args.n_genes} genes, two conditions, 60 samples; --cores {args.cores}")
     print(
         "| setting | wall (s) | ratio to plain | peak job RSS (MB) | run folder (MB) | "
-        "scan files (MB) | genes clustered | m | c | flags |"
+        "scan files (MB) | genes clustered | m | c | flags | job time (s) | longest chain (s) |"
     )
-    print("|---|---|---|---|---|---|---|---|---|---|")
+    print("|---|---|---|---|---|---|---|---|---|---|---|---|")
     for setting, record in results.items():
         ratio = f"{record['wall'] / reference['wall']:.2f}" if reference else ""
         print(
             f"| {setting} | {record['wall']:.0f} | {ratio} | "
             f"{record['jobs']['max_rss_mb'].max():.0f} | {record['run_mb']:.0f} | "
             f"{record['scan_mb']:.0f} | {record['kept']} | {record['m']:.3f} | {record['c']} | "
-            f"{record['flags']} |"
+            f"{record['flags']} | {record['jobs']['seconds'].sum():.0f} | "
+            f"{longest_chain(record['jobs']):.0f} |"
         )
     for setting, record in results.items():
         jobs = record["jobs"].sort_values("seconds", ascending=False).head(8)

@@ -11,13 +11,17 @@ Files between stages
     What every scan job and the selection read, in one file (one input per scan job keeps the
     plan of a large grid small): ``zscores`` (n_genes, n_columns), ``genes``, ``columns``,
     ``times``, ``conditions``, ``m``, ``selection_method`` and, with replicates,
-    ``replicates`` (n_genes, n_samples; per-sample log values) and ``sample_column``.
+    ``replicates`` (n_genes, n_samples; per-sample log values) and ``sample_column``; when
+    the run compares conditions, ``comparison_profiles``, ``comparison_flat`` and
+    ``comparison_m`` (:class:`ComparisonInput`).
 ``fuzzifier.json`` (:func:`write_fuzzifier_choice`)
     ``m``, ``method``, ``formula_m``, ``setting``, ``n_clusters_check``, ``n_genes``,
     ``n_columns``, ``check_structure_index``, ``check_passed``; the randomised-data curve goes
     to its own TSV.
 ``scan/c<c>.npz`` (:func:`run_scan`, read by :func:`read_scan`)
     The partition for one c with its evidence (see :func:`run_scan`).
+``structure.json`` (:func:`run_structure`, read by :func:`read_structure`)
+    The structure tests of the run's genes and of the comparison's profiles.
 ``selection.json``, ``validity.tsv``, ``consensus.npz`` (:func:`run_select`)
     The decision on c, the per-c table behind it and the chosen partition in peak-time order
     (:func:`consensus_arrays`).
@@ -28,9 +32,10 @@ each c, the quality flags) and how long the work took; warnings name the c they 
 Nothing is configured here: :func:`rule_environment` sends a rule's records to its log file
 and :func:`gloam.logs.console_logging` sends progress to the terminal.
 
-Seeds: the scan for c draws from ``numpy.random.default_rng([seed, c])`` and the fuzzifier
-check from ``default_rng([seed, 0])``, so each job is reproducible on its own, whatever
-order a scheduler runs them in.
+Seeds: the scan for c draws from ``numpy.random.default_rng([seed, c])`` (the comparison's
+clustering at c from ``[seed, 7, c]``), the structure tests from ``[seed, 1]`` and
+``[seed, 8]``, and the fuzzifier check from ``default_rng([seed, 0])``, so each job is
+reproducible on its own, whatever order a scheduler runs them in.
 """
 
 from __future__ import annotations
@@ -73,10 +78,15 @@ __all__ = [
     "clusters_for_fuzzifier_check",
     "write_fuzzifier_choice",
     "ScanInput",
+    "ComparisonInput",
+    "comparison_input",
+    "MIN_COMPARISON_PROFILES",
     "write_scan_input",
     "read_scan_input",
     "run_scan",
     "read_scan",
+    "run_structure",
+    "read_structure",
     "run_select",
     "consensus_arrays",
     "single_group_arrays",
@@ -510,6 +520,9 @@ class ScanInput:
         Column each sample belongs to.
     selection_method : str
         How genes were selected (``moderated_f``, ``no_replicates`` or ``none``).
+    comparison : ComparisonInput or None
+        The changing gene-condition profiles that the scan jobs also cluster for the
+        comparison of conditions (None: the run does not compare them).
     """
 
     zscores: pd.DataFrame
@@ -519,6 +532,7 @@ class ScanInput:
     replicates: np.ndarray | None
     sample_column: np.ndarray | None
     selection_method: str
+    comparison: ComparisonInput | None = None
 
 
 def write_scan_input(
@@ -530,6 +544,7 @@ def write_scan_input(
     replicates: pd.DataFrame | None = None,
     samples: pd.DataFrame | None = None,
     selection_method: str = "none",
+    comparison: ComparisonInput | None = None,
 ) -> None:
     """Write what a scan job reads (see :class:`ScanInput`).
 
@@ -537,6 +552,8 @@ def write_scan_input(
     columns are taken as times 0, 1, ... of one condition). ``replicates`` (genes x samples)
     with ``samples`` (a ``sample`` and a ``column`` per sample, as in
     :attr:`gloam.prepare.PreparedData.samples`) enables resampling of replicates.
+    ``comparison`` (:func:`comparison_input`) makes every scan job cluster the changing
+    gene-condition profiles at its c too, for the comparison of conditions.
     """
     names = zscores.columns.astype(str)
     if columns is None:
@@ -561,6 +578,10 @@ def write_scan_input(
         arrays["sample_column"] = np.array(
             [position[order[str(sample)]] for sample in replicates.columns], dtype=np.int64
         )
+    if comparison is not None:
+        arrays["comparison_profiles"] = comparison.profiles
+        arrays["comparison_flat"] = comparison.flat
+        arrays["comparison_m"] = np.float64(comparison.m)
     _write_npz(out_npz, **arrays)
     _log.info(
         "scan input: %d genes x %d columns, m = %.3f; resampling %s",
@@ -596,6 +617,13 @@ def read_scan_input(path: PathLike) -> ScanInput:
         replicates=data.get("replicates"),
         sample_column=data.get("sample_column"),
         selection_method=str(data.get("selection_method", "none")),
+        comparison=ComparisonInput(
+            profiles=data["comparison_profiles"],
+            flat=data["comparison_flat"],
+            m=float(data["comparison_m"]),
+        )
+        if "comparison_profiles" in data
+        else None,
     )
 
 
@@ -646,27 +674,98 @@ def _solve_at(
     )
 
 
-def _structure_and_judgement(
-    X: np.ndarray,
-    m: float,
-    table: pd.DataFrame,
-    options: Mapping[str, Any],
-    *,
-    rng: np.random.Generator,
-) -> tuple[Any, pd.DataFrame]:
-    """The structure test of ``X`` and every scanned c judged with the selection ``options``
-    (the keys of :data:`_SELECTION_DEFAULTS`); shared by a run's selection and the comparison."""
-    from gloam.structure import structure_test
-    from gloam.validity import judge_n_clusters
+#: Streams of the structure tests: the run's genes and the comparison's profiles.
+_STRUCTURE_STREAM = {"clusters": 1, "comparison": 8}
 
-    structure = structure_test(
+
+def _structure_test_of(
+    X: np.ndarray, m: float, options: Mapping[str, Any], seed: int, which: str
+) -> Any:
+    """The structure test (:func:`gloam.structure.structure_test`) of the run's genes
+    (``which="clusters"``, ``default_rng([seed, 1])``) or of the comparison's gene-condition
+    profiles (``"comparison"``, ``default_rng([seed, 8])``) under the selection ``options``."""
+    from gloam.structure import structure_test
+
+    return structure_test(
         X,
         m,
         n_null=int(options["structure_n_null"]),
         alpha=float(options["structure_alpha"]),
-        rng=rng,
+        rng=np.random.default_rng([int(seed), _STRUCTURE_STREAM[which]]),
     )
-    judged = judge_n_clusters(
+
+
+def run_structure(
+    scan_input: PathLike, settings: Mapping[str, Any], seed: int, out_json: PathLike
+) -> None:
+    """The structure tests of a run, in a job of their own beside the scans.
+
+    They need only the scan input and the selection ``settings`` (``structure_n_null``,
+    ``structure_alpha``), so the selection and the comparison, which wait for every scan,
+    do not run them after the scans. ``out_json`` holds ``clusters`` (the test of the run's
+    genes) and ``comparison`` (of the changing gene-condition profiles, or null), each the
+    fields of :class:`gloam.structure.StructureTest`; :func:`read_structure` reads it.
+    """
+    options = {**_SELECTION_DEFAULTS, **settings}
+    data = read_scan_input(scan_input)
+    started = time.perf_counter()
+    record: dict[str, Any] = {
+        "clusters": _structure_test_of(
+            data.zscores.to_numpy(), data.m, options, seed, "clusters"
+        ).to_dict(),
+        "comparison": None,
+    }
+    if data.comparison is not None:
+        record["comparison"] = _structure_test_of(
+            data.comparison.profiles, data.comparison.m, options, seed, "comparison"
+        ).to_dict()
+    _write_json(record, out_json)
+    for which, result in record.items():
+        if result is not None:
+            _log.info(
+                "structure test (%s): %d rows, m = %.3f: p = %.3g at level %g, %s",
+                which,
+                result["n_genes_used"],
+                result["m"],
+                result["p_value"],
+                result["alpha"],
+                "structure present" if result["present"] else "no structure",
+            )
+    _log.info("structure tests: %.1f s", time.perf_counter() - started)
+
+
+def read_structure(
+    path: PathLike | None,
+    which: str,
+    X: np.ndarray,
+    m: float,
+    options: Mapping[str, Any],
+    seed: int,
+) -> Any:
+    """The structure test ``which`` (``clusters`` or ``comparison``) from a file of
+    :func:`run_structure`, checked against ``m`` and the ``options``; without a file
+    (``path`` None: the command line, tests) it is run here, with the same draws."""
+    from gloam.structure import StructureTest
+
+    if path is None:
+        return _structure_test_of(X, m, options, seed, which)
+    record = read_json(path, "structure tests").get(which)
+    wanted = (float(m), int(options["structure_n_null"]), float(options["structure_alpha"]))
+    if record is None or (record["m"], record["n_null"], record["alpha"]) != wanted:
+        raise GloamError(
+            f"structure tests {str(path)!r} were made for other data or settings than this "
+            f"{'comparison' if which == 'comparison' else 'selection'}: delete the file and run "
+            "again"
+        )
+    return StructureTest(**record)
+
+
+def _judgement(structure: Any, table: pd.DataFrame, options: Mapping[str, Any]) -> pd.DataFrame:
+    """Every scanned c judged with the selection ``options`` (the keys of
+    :data:`_SELECTION_DEFAULTS`); shared by a run's selection and the comparison."""
+    from gloam.validity import judge_n_clusters
+
+    return judge_n_clusters(
         table,
         structure_present=structure.present,
         stable_jaccard=float(options["stable_jaccard"]),
@@ -675,7 +774,6 @@ def _structure_and_judgement(
         min_coherence=float(options["min_coherence"]),
         separation_alpha=float(options["structure_alpha"]),
     )
-    return structure, judged
 
 
 def run_scan(
@@ -693,8 +791,11 @@ def run_scan(
     ``start_agreement``, ``top_agreement`` (n_genes,), ``membership_low``,
     ``membership_high``, ``core_frequency`` (n_genes, c), ``jaccard`` (n_resamples, c),
     ``noise_distance``, ``m``, ``seed``, ``genes``, ``columns`` and ``metrics`` (a JSON
-    string: one row of the validity table). A c not below the number of genes is refused with
-    a message saying how to fix it (:func:`check_clusters_fit_genes`).
+    string: one row of the validity table). When the scan input holds the comparison's
+    profiles, the file also holds their clustering at c (``comparison_metrics``,
+    ``comparison_centroids``; :func:`_comparison_at`), so the comparison's scan runs in the
+    scan jobs side by side, not c after c in one job. A c not below the number of genes is
+    refused with a message saying how to fix it (:func:`check_clusters_fit_genes`).
     """
 
     data = read_scan_input(scan_input)
@@ -732,9 +833,11 @@ def run_scan(
             GloamWarning,
             stacklevel=2,
         )
+    comparison = _comparison_at(data.comparison, c, options, seed)
     empty = np.full_like(partition.memberships, np.nan)
     _write_npz(
         out_npz,
+        **comparison,
         centroids=partition.centroids,
         memberships=partition.memberships,
         noise=partition.noise,
@@ -778,6 +881,43 @@ def run_scan(
         metrics["max_pair_p_value"],
         metrics["n_noise"],
     )
+
+
+def _comparison_at(
+    comparison: ComparisonInput | None, c: int, options: Mapping[str, Any], seed: int
+) -> dict[str, Any]:
+    """The comparison's clustering of the changing gene-condition profiles at ``c``, for the
+    scan file: ``comparison_metrics`` (JSON, as a scan's ``metrics``) and
+    ``comparison_centroids`` (c, n_times); nothing when the run does not compare or ``c`` is
+    not below the number of profiles. Genes are resampled for robustness (one profile per
+    gene and condition has no replicates of its own); the draws come from
+    ``default_rng([seed, 7, c])``."""
+    if comparison is None or c >= comparison.profiles.shape[0]:
+        return {}
+    started = time.perf_counter()
+    with about(f"comparison c = {c}"):
+        partition = _solve_at(
+            comparison.profiles,
+            c,
+            comparison.m,
+            options,
+            rng=np.random.default_rng([int(seed), 7, c]),
+        )
+    _log.info(
+        "comparison c = %d: %d gene-condition profiles, m = %.3f: %d starts, %d at the best "
+        "objective; %.1f s",
+        c,
+        comparison.profiles.shape[0],
+        comparison.m,
+        partition.metrics["n_starts"],
+        partition.metrics["n_at_optimum"],
+        time.perf_counter() - started,
+    )
+    return {
+        "comparison_metrics": np.str_(json.dumps(partition.metrics)),
+        "comparison_centroids": partition.centroids,
+        "comparison_n_profiles": np.int64(comparison.profiles.shape[0]),
+    }
 
 
 def _or(value: np.ndarray | None, default: np.ndarray) -> np.ndarray:
@@ -828,13 +968,15 @@ def run_select(
     out_validity: PathLike,
     out_selection: PathLike,
     out_consensus: PathLike,
+    structure_json: PathLike | None = None,
 ) -> None:
     """Test for structure, judge every scanned c, choose c and write its consensus.
 
     ``settings`` is the selection section of the config: ``n_clusters`` (``"auto"`` or an
     integer), ``stable_jaccard``, ``min_core_genes``, ``max_centroid_correlation``,
     ``min_coherence``, ``structure_alpha``, ``structure_n_null``. The structure test
-    (:func:`gloam.structure.structure_test`) uses ``default_rng([seed, 1])``.
+    (:func:`gloam.structure.structure_test`, ``default_rng([seed, 1])``) is read from
+    ``structure_json`` (:func:`run_structure`), or run here without it.
 
     Writes ``validity.tsv`` (the per-c metrics of every scan file, judged by
     :func:`gloam.validity.judge_n_clusters`, plus ``used``), ``selection.json``
@@ -865,9 +1007,10 @@ def run_select(
         len(file_of),
         ", ".join(str(c) for c in sorted(file_of)),
     )
-    structure, judged = _structure_and_judgement(
-        data.zscores.to_numpy(), data.m, table, options, rng=np.random.default_rng([int(seed), 1])
+    structure = read_structure(
+        structure_json, "clusters", data.zscores.to_numpy(), data.m, options, seed
     )
+    judged = _judgement(structure, table, options)
     _log_judgement(structure, judged, options)
     recommended = recommended_n_clusters(judged)
     if recommended > 1:
@@ -1976,30 +2119,44 @@ TRANSITION_COLUMNS = (
 def _condition_test(prepared: PathLike, gene_report: PathLike, fdr: float) -> tuple[Any, str]:
     """The interaction test of the prepared genes (from the preparation's gene report) and
     their per-condition effect sizes; or None and the reason there is nothing to compare."""
-
-    from gloam.compare import InteractionTest, condition_profiles
     from gloam.prepare import LOG_MEAN_LAYER
 
     data = read_prepared(prepared)
-    genes = pd.Index(np.asarray(data.var_names, dtype=str), name="gene")
-    conditions = list(dict.fromkeys(data.obs["condition"].astype(str)))
-    if len(conditions) < 2:
-        return None, f"the run holds one condition ({conditions[0]}): nothing to compare"
     report = pd.read_csv(gene_report, sep="\t", dtype={"gene": str}, float_precision="round_trip")
-    report = report.set_index("gene")
+    return _condition_test_of(
+        np.asarray(data.var_names, dtype=str),
+        np.asarray(data.layers[LOG_MEAN_LAYER], dtype=np.float64).T,
+        data.obs["condition"].astype(str).to_numpy(),
+        data.obs["time"].to_numpy(dtype=np.float64),
+        report,
+        fdr,
+    )
+
+
+def _condition_test_of(
+    genes: np.ndarray,
+    log_means: np.ndarray,
+    conditions: np.ndarray,
+    times: np.ndarray,
+    gene_report: pd.DataFrame,
+    fdr: float,
+) -> tuple[Any, str]:
+    """:func:`_condition_test` on data in memory: ``log_means`` (n_genes, n_columns), the
+    condition and time of each column, and the preparation's gene report (column ``gene``)."""
+    from gloam.compare import InteractionTest, condition_profiles
+
+    genes = pd.Index(genes, name="gene")
+    names = list(dict.fromkeys(conditions))
+    if len(names) < 2:
+        return None, f"the run holds one condition ({names[0]}): nothing to compare"
+    report = gene_report.set_index("gene")
     if "interaction_fdr" not in report.columns:
         return None, (
             "no condition x time interaction test: it needs replicates in every condition and "
             "the same time points in each"
         )
     report = report.reindex(genes)
-    log_means = np.asarray(data.layers[LOG_MEAN_LAYER], dtype=np.float64).T
-    profiles = condition_profiles(
-        log_means,
-        data.obs["condition"].astype(str).to_numpy(),
-        data.obs["time"].to_numpy(dtype=np.float64),
-        genes=genes,
-    )
+    profiles = condition_profiles(log_means, conditions, times, genes=genes)
     adjusted = report["interaction_fdr"].to_numpy(dtype=float)
     table = pd.DataFrame(
         {
@@ -2024,9 +2181,70 @@ def _condition_test(prepared: PathLike, gene_report: PathLike, fdr: float) -> tu
     return (test, report[extra]), ""
 
 
+@dataclasses.dataclass(frozen=True)
+class ComparisonInput:
+    """The observations the comparison clusters: changing gene-condition profiles.
+
+    Attributes
+    ----------
+    profiles : ndarray of shape (n_profiles, n_times)
+        Every gene's mean log2 profile in each condition where it changes (gene-major, then
+        condition order), z-scored on its own.
+    flat : ndarray of shape (n_genes, n_conditions), bool
+        Profiles left out (:func:`gloam.compare.flat_profiles`).
+    m : float
+        Fuzzifier for ``profiles`` (Schwaemmle & Jensen 2010, from their size).
+    """
+
+    profiles: np.ndarray
+    flat: np.ndarray
+    m: float
+
+
+#: Fewest changing gene-condition profiles the comparison clusters.
+MIN_COMPARISON_PROFILES = 10
+
+
+def _comparison_input_of(test: Any, fdr: float, min_log2_range: float) -> ComparisonInput:
+    """The changing profiles of an interaction test's condition profiles, and their m."""
+    from gloam.compare import flat_profiles
+    from gloam.fuzzifier import schwaemmle_jensen_m
+    from gloam.prepare import zscore_rows
+
+    cube = test.profiles.values
+    n_times = cube.shape[2]
+    flat = flat_profiles(test.profiles, test.table, min_log2_range, fdr)
+    changing, _, _ = zscore_rows(cube.reshape(-1, n_times)[~flat.ravel()])
+    n_rows = changing.shape[0]
+    m = schwaemmle_jensen_m(n_rows, n_times) if n_rows >= MIN_COMPARISON_PROFILES else 2.0
+    return ComparisonInput(profiles=changing, flat=flat, m=float(m))
+
+
+def comparison_input(prepared: Any, fdr: float, min_log2_range: float) -> ComparisonInput | None:
+    """What the scan jobs cluster for the comparison of conditions at each c, from a
+    :class:`gloam.prepare.PreparedData` in memory; None when the run cannot compare (one
+    condition, no interaction test, or fewer than :data:`MIN_COMPARISON_PROFILES` changing
+    profiles: the comparison job then says why)."""
+    found, _ = _condition_test_of(
+        prepared.log_means.index.to_numpy(dtype=str),
+        prepared.log_means.to_numpy(dtype=np.float64),
+        prepared.columns.loc[prepared.log_means.columns, "condition"].astype(str).to_numpy(),
+        prepared.columns.loc[prepared.log_means.columns, "time"].to_numpy(dtype=np.float64),
+        prepared.gene_report,
+        fdr,
+    )
+    if found is None:
+        return None
+    result = _comparison_input_of(found[0], fdr, min_log2_range)
+    if result.profiles.shape[0] < MIN_COMPARISON_PROFILES:
+        return None
+    return result
+
+
 def run_comparison(
     prepared: PathLike,
     gene_report: PathLike,
+    scans: Sequence[PathLike],
     scan_settings: Mapping[str, Any],
     selection_settings: Mapping[str, Any],
     cluster_numbers: Sequence[int],
@@ -2035,6 +2253,7 @@ def run_comparison(
     fdr: float,
     min_log2_range: float,
     prefix: str,
+    structure_json: PathLike | None = None,
     out_dir: PathLike,
 ) -> None:
     """Compare the conditions of a run: shared responses, transitions and changed genes.
@@ -2044,7 +2263,8 @@ def run_comparison(
     ``min_log2_range`` or change over time not significant at ``fdr``). The shared responses
     are chosen as a run's clusters are: the changing gene-condition profiles are clustered at
     every c of ``cluster_numbers`` (:func:`gloam.partition.solve_partition`, genes resampled
-    for robustness, m from Schwaemmle & Jensen 2010 for their size), tested for structure
+    for robustness, m from Schwaemmle & Jensen 2010 for their size; the run's scan jobs do
+    this, and ``scans`` are their files, :func:`run_scan`), tested for structure
     and judged by :func:`gloam.validity.judge_n_clusters`; the largest c that passes is
     used. Every gene-condition then gets memberships against those centroids
     (:func:`gloam.compare.shared_responses`), and a gene has *changed* when its condition x
@@ -2071,6 +2291,7 @@ def run_comparison(
             staging,
             prepared,
             gene_report,
+            scans,
             scan_settings,
             selection_settings,
             cluster_numbers,
@@ -2078,6 +2299,7 @@ def run_comparison(
             fdr=fdr,
             min_log2_range=min_log2_range,
             prefix=prefix,
+            structure_json=structure_json,
         )
         _write_json(record, staging / "selection.json")
     if record["compared"]:
@@ -2095,10 +2317,33 @@ def run_comparison(
         _log.info("conditions not compared: %s", record["reason"], extra=_PROGRESS)
 
 
+def _comparison_scans(
+    scans: Sequence[PathLike], n_profiles: int, m: float
+) -> dict[int, tuple[dict[str, Any], np.ndarray]]:
+    """c -> (metrics, centroids) of the comparison's clustering in each scan file
+    (:func:`_comparison_at`); a file made on other profiles (their number or m differ from
+    the preparation's) is refused with the fix."""
+    found = {}
+    for path in scans:
+        data = _load_npz(path, "scan file")
+        if "comparison_metrics" not in data:
+            continue
+        metrics = json.loads(str(data["comparison_metrics"]))
+        if int(data["comparison_n_profiles"]) != n_profiles or float(metrics["m"]) != m:
+            raise GloamError(
+                f"scan file {str(path)!r} clustered {int(data['comparison_n_profiles'])} "
+                f"gene-condition profiles at m = {float(metrics['m']):.3f}, the preparation "
+                f"gives {n_profiles} at m = {m:.3f}: delete the run's scan folder and run again"
+            )
+        found[int(metrics["n_clusters"])] = (metrics, data["comparison_centroids"])
+    return found
+
+
 def _compare_into(
     out: Path,
     prepared: PathLike,
     gene_report: PathLike,
+    scans: Sequence[PathLike],
     scan_settings: Mapping[str, Any],
     selection_settings: Mapping[str, Any],
     cluster_numbers: Sequence[int],
@@ -2107,20 +2352,18 @@ def _compare_into(
     fdr: float,
     min_log2_range: float,
     prefix: str,
+    structure_json: PathLike | None = None,
 ) -> dict[str, Any]:
     """The work of :func:`run_comparison`; returns the ``selection.json`` record."""
     from gloam.compare import (
         changed_gene_sets,
-        flat_profiles,
         plot_transitions,
         shared_responses,
         transition_table,
     )
     from gloam.consensus import order_clusters_by_peak_time
-    from gloam.fuzzifier import schwaemmle_jensen_m
     from gloam.io import write_gmt, write_lines
     from gloam.plots import save_figure
-    from gloam.prepare import zscore_rows
     from gloam.validity import recommended_n_clusters
 
     selection = {**_SELECTION_DEFAULTS, **selection_settings}
@@ -2131,18 +2374,16 @@ def _compare_into(
     test, effects = found
     profiles = test.profiles
     cube = profiles.values
-    n_times = cube.shape[2]
-    flat = flat_profiles(profiles, test.table, min_log2_range, fdr)
-    changing, _, _ = zscore_rows(cube.reshape(-1, n_times)[~flat.ravel()])
+    observations = _comparison_input_of(test, fdr, min_log2_range)
+    changing, flat, m = observations.profiles, observations.flat, observations.m
     n_rows = changing.shape[0]
     numbers = sorted(int(c) for c in cluster_numbers if 2 <= int(c) < n_rows)
-    if n_rows < 10 or not numbers:
+    if n_rows < MIN_COMPARISON_PROFILES or not numbers:
         return {
             "compared": False,
-            "reason": f"only {n_rows} gene-condition profiles change over time (at least 10 "
-            "and more than the smallest scanned c are needed)",
+            "reason": f"only {n_rows} gene-condition profiles change over time (at least "
+            f"{MIN_COMPARISON_PROFILES} and more than the smallest scanned c are needed)",
         }
-    m = schwaemmle_jensen_m(n_rows, n_times)
     _log.info(
         "read %s: %d genes in %d conditions (%s); %d of %d gene-condition profiles change over "
         "time; m = %.3f for them (Schwaemmle & Jensen 2010); c = %s",
@@ -2155,25 +2396,17 @@ def _compare_into(
         m,
         ", ".join(str(c) for c in numbers),
     )
-    rows, centroids_at = [], {}
-    for c in numbers:
-        started = time.perf_counter()
-        with about(f"comparison c = {c}"):
-            partition = _solve_at(
-                changing, c, m, scan, rng=np.random.default_rng([int(seed), 7, c])
-            )
-        rows.append(partition.metrics)
-        centroids_at[c] = partition.centroids
-        _log.info(
-            "comparison c = %d: %d starts, %d at the best objective; %.1f s",
-            c,
-            partition.metrics["n_starts"],
-            partition.metrics["n_at_optimum"],
-            time.perf_counter() - started,
+    found_at = _comparison_scans(scans, n_rows, m)
+    missing = [c for c in numbers if c not in found_at]
+    if missing:
+        raise GloamError(
+            f"no scan file holds the comparison's clustering at c = {missing}; the scan files "
+            "were made before this preparation: delete the run's scan folder and run again"
         )
-    structure, judged = _structure_and_judgement(
-        changing, m, pd.DataFrame(rows), selection, rng=np.random.default_rng([int(seed), 8])
-    )
+    rows = [found_at[c][0] for c in numbers]
+    centroids_at = {c: found_at[c][1] for c in numbers}
+    structure = read_structure(structure_json, "comparison", changing, m, selection, seed)
+    judged = _judgement(structure, pd.DataFrame(rows), selection)
     _log_judgement(structure, judged, selection)
     chosen = recommended_n_clusters(judged)
     judged["used"] = judged["n_clusters"] == chosen

@@ -8,6 +8,7 @@ import os
 import sys
 
 from snakemake.exceptions import WorkflowError
+from snakemake.rules import Rule
 
 from gloam.errors import GloamError
 from gloam.artifacts import FIGURES as ARTIFACT_FIGURES
@@ -100,6 +101,26 @@ def figure_outputs(writer):
             )
         outputs[name] = path
     return outputs
+
+
+# Larger c first: a scan's work grows with c, so starting the longest scans first leaves no
+# core idle beside one long scan at the end (longest processing time first, Graham 1969).
+# Snakemake takes a function for priority since 9.x; an older 9 gets a constant.
+@per_job
+def scan_priority(wildcards):
+    return int(wildcards.c)
+
+
+# The structure tests take about as long as a mid-range scan and the selection waits for them:
+# they start with the largest c.
+@per_job
+def structure_priority(wildcards):
+    return max(PLAN.cluster_numbers(get_run(wildcards)["run"]))
+
+
+CALLABLE_PRIORITY = hasattr(Rule, "expand_priority")
+SCAN_PRIORITY = scan_priority if CALLABLE_PRIORITY else 0
+STRUCTURE_PRIORITY = structure_priority if CALLABLE_PRIORITY else 0
 
 
 @per_job

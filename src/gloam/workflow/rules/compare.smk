@@ -1,6 +1,8 @@
-# Conditions compared: shared responses, transitions and changed genes. One job per run; it
-# needs only the preparation, so it runs beside the scans. A run with one condition (or no
-# replicates) gets comparison/selection.json alone, saying why nothing was compared.
+# Conditions compared: shared responses, transitions and changed genes. One job per run. The
+# scan jobs cluster the changing gene-condition profiles at their c as well (the preparation
+# puts them into scan_input.npz) and the structure job tests them, so this job reads those
+# files, judges c and writes. A run with one condition (or no replicates) gets
+# comparison/selection.json alone, saying why nothing was compared.
 
 
 rule compare:
@@ -9,6 +11,8 @@ rule compare:
     input:
         prepared=run_path("{run}", "prepared/prepared.h5ad"),
         gene_report=run_path("{run}", "prepared/gene_report.tsv"),
+        scans=get_scan_files,
+        structure=run_path("{run}", "structure.json"),
     output:
         comparison=report(
             directory(run_path("{run}", "comparison")),

@@ -12,6 +12,8 @@ rule report_page:
         settings=get_report_settings,
     log:
         "logs/{run}/report_page.log",
+    benchmark:
+        "benchmarks/{run}/report_page.tsv"
     threads: PLAN.threads("report_page")
     resources:
         mem_mb=resource("report_page", "mem_mb"),

@@ -22,6 +22,7 @@ rule scan:
         "logs/{run}/scan_c{c}.log",
     benchmark:
         "benchmarks/{run}/scan_c{c}.tsv"
+    priority: SCAN_PRIORITY
     threads: PLAN.threads("scan")
     resources:
         mem_mb=resource("scan", "mem_mb"),

@@ -26,6 +26,7 @@ try:
         run_comparison(
             job.input.prepared,
             job.input.gene_report,
+            job.input.scans,
             settings["scan"],
             settings["selection"],
             settings["cluster_numbers"],
@@ -33,6 +34,7 @@ try:
             fdr=settings["fdr"],
             min_log2_range=settings["min_log2_range"],
             prefix=settings["prefix"],
+            structure_json=job.input.structure,
             out_dir=job.output.comparison,
         )
 finally:

@@ -20,6 +20,7 @@ signal.signal(
 sys.path.insert(0, str(Path(job.scriptdir).resolve().parents[2]))
 
 from gloam.stages import (
+    comparison_input,
     rule_environment,
     run_prepare,
     write_fuzzifier_choice,
@@ -53,6 +54,11 @@ try:
             replicates=prepared.replicates,
             samples=prepared.samples,
             selection_method=prepared.selection_method,
+            # The comparison's changing gene-condition profiles: the scan jobs cluster them
+            # at their c too, so the comparison's scan runs side by side.
+            comparison=comparison_input(
+                prepared, job.params.settings["fdr"], job.params.settings["min_log2_range"]
+            ),
         )
 finally:
     # Done, or failed with its message: an interrupt during the exit that follows would print

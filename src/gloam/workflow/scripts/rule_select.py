@@ -31,6 +31,7 @@ try:
             out_validity=job.output.validity,
             out_selection=job.output.selection,
             out_consensus=job.output.consensus,
+            structure_json=job.input.structure,
         )
 finally:
     # Done, or failed with its message: an interrupt during the exit that follows would print
