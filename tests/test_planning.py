@@ -430,6 +430,8 @@ def test_variants_share_the_jobs_whose_settings_they_share(tmp_path):
     assert plan.owner(wide, "scan") == base
     assert plan.scan_files(wide)[0] == plan.path(base, "scan/c2.npz")
     assert plan.scan_files(wide)[-1] == plan.path(base, "scan/c12.npz")
+    # Scan jobs: c = 2..10 for base (strict shares them), more and sd, and wide adds 11, 12.
+    assert plan.n_scan_jobs() == 3 * 9 + 2
     # The comparison depends on the rule for c, so only identical settings share it.
     assert plan.sharing_runs("compare") == []
     assert plan.sharing_runs("prepare") == [strict, more, wide]

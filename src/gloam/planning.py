@@ -485,6 +485,13 @@ class Plan:
             numbers.add(int(fixed))
         return sorted(numbers)
 
+    def n_scan_jobs(self) -> int:
+        """Scan jobs of the plan: one per scan owner and c (a run scanning a wider range than
+        its owner adds the owner's missing c)."""
+        return len(
+            {(self.owner(run, "scan"), c) for run in self.runs for c in self.cluster_numbers(run)}
+        )
+
     def scan_files(self, run: str) -> list[str]:
         """The scan files a run's selection reads: its scan owner's, one per scanned c."""
         owner = self.owner(run, "scan")

@@ -105,20 +105,27 @@ def figure_outputs(writer):
 
 # Larger c first: a scan's work grows with c, so starting the longest scans first leaves no
 # core idle beside one long scan at the end (longest processing time first, Graham 1969).
-# Snakemake takes a function for priority since 9.x; an older 9 gets a constant.
+# The structure tests take about as long as a mid-range scan and the selection waits for
+# them, so they start with the largest c. A priority function costs Snakemake planning time
+# per job (5 s in the 14,400-scan grid of scripts/bench_dag.py), so plans with more than
+# PRIORITY_MAX_SCANS scan jobs, which go to a cluster with many cores, keep constant
+# priorities; Snakemake takes a function for priority since 9.x, an older 9 gets constants.
+PRIORITY_MAX_SCANS = 2000
+
+
 @per_job
 def scan_priority(wildcards):
     return int(wildcards.c)
 
 
-# The structure tests take about as long as a mid-range scan and the selection waits for them:
-# they start with the largest c.
 @per_job
 def structure_priority(wildcards):
     return max(PLAN.cluster_numbers(get_run(wildcards)["run"]))
 
 
-CALLABLE_PRIORITY = hasattr(Rule, "expand_priority")
+CALLABLE_PRIORITY = (
+    hasattr(Rule, "expand_priority") and PLAN.n_scan_jobs() <= PRIORITY_MAX_SCANS
+)
 SCAN_PRIORITY = scan_priority if CALLABLE_PRIORITY else 0
 STRUCTURE_PRIORITY = structure_priority if CALLABLE_PRIORITY else 0
 
